@@ -1,0 +1,55 @@
+//! The `facetcal` command: parses arguments and wires the library crates together.
+//! Everything that computes lives in the library crates; see DEVELOPERS.md.
+
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand};
+
+mod exit;
+mod output;
+mod target;
+
+/// Automatic target detection and camera calibration.
+#[derive(Parser, Debug)]
+#[command(name = "facetcal", version, about, propagate_version = true)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Check a target file or write its printable sheets.
+    Target(target::TargetArgs),
+}
+
+fn run(cli: Cli) -> anyhow::Result<ExitCode> {
+    match cli.command {
+        Command::Target(a) => target::run(a),
+    }
+}
+
+fn main() -> ExitCode {
+    tracing_subscriber::fmt()
+        .with_env_filter(
+            tracing_subscriber::EnvFilter::try_from_env("FACETCAL_LOG")
+                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("warn")),
+        )
+        .with_writer(std::io::stderr)
+        .init();
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let code = if e.use_stderr() { exit::USAGE } else { exit::OK };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    match run(cli) {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("error: {}", exit::chain(&e));
+            ExitCode::from(exit::code_of(&e))
+        }
+    }
+}

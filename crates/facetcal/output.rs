@@ -1,0 +1,39 @@
+//! Writing outputs safely: never overwrite without `--force`, always atomically.
+
+use std::io::Write;
+use std::path::Path;
+
+use anyhow::Context;
+
+use crate::exit;
+
+/// Creates a folder and its parents.
+pub fn create_dir(dir: &Path) -> anyhow::Result<()> {
+    std::fs::create_dir_all(dir).map_err(|e| {
+        exit::coded(exit::CANT_CREATE, format!("cannot create folder {}: {e}", dir.display()))
+    })
+}
+
+/// Writes a file atomically (temporary file in the same folder, fsync, rename). Refuses to
+/// replace an existing file unless `force` is set.
+pub fn write_new(path: &Path, bytes: &[u8], force: bool) -> anyhow::Result<()> {
+    if !force && path.exists() {
+        return Err(exit::coded(
+            exit::CANT_CREATE,
+            format!("{} already exists (use --force to replace it)", path.display()),
+        ));
+    }
+    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let fail = |e: std::io::Error| {
+        exit::coded(exit::CANT_CREATE, format!("cannot write {}: {e}", path.display()))
+    };
+    let mut tmp = tempfile::Builder::new()
+        .prefix(".facetcal-")
+        .suffix(".tmp")
+        .tempfile_in(dir)
+        .map_err(fail)?;
+    tmp.write_all(bytes).map_err(fail)?;
+    tmp.as_file().sync_all().map_err(fail)?;
+    tmp.persist(path).map_err(|e| fail(e.error)).with_context(|| "atomic rename")?;
+    Ok(())
+}
