@@ -33,6 +33,7 @@
 
 pub mod camera;
 pub mod error;
+pub mod files;
 pub mod geometry;
 pub mod rng;
 pub mod target;
