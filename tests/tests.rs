@@ -1,1 +1,6 @@
-mod placeholder {}
+//! End-to-end tests: the `facetcal` binary run in scratch folders. One test binary, one module
+//! per command (see DEVELOPERS.md).
+
+mod util;
+
+mod target;

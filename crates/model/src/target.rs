@@ -560,7 +560,7 @@ impl TargetSpec {
         serde_path_to_error::deserialize(de).map_err(|e| {
             let path = e.path().to_string();
             let inner = e.into_inner();
-            if path == "." || path.is_empty() {
+            if path == "." || path == "?" || path.is_empty() {
                 ModelError::Parse(inner.to_string())
             } else {
                 ModelError::field(path, inner.to_string())
