@@ -35,6 +35,9 @@ use crate::geometry::Pose;
 pub const TARGET_FORMAT: &str = "facetcal-target";
 /// The target file version this program reads and writes.
 pub const TARGET_VERSION: u32 = 1;
+/// The most cells (or dots, or squares) one face may have: bounds the memory any target file can
+/// make the program use.
+pub const MAX_GRID_CELLS: u64 = 1_000_000;
 /// Mark diameter as a fraction of the cell (checker), side (squares) or dot diameter (dots).
 pub const MARK_FRACTION: f64 = 0.4;
 
@@ -802,6 +805,17 @@ fn check_pattern(p: &PatternSpec, path: &str) -> Result<(), ModelError> {
             Ok(())
         }
     };
+    let (rows, columns) = match *p {
+        PatternSpec::Checkerboard { rows, columns, .. }
+        | PatternSpec::DotGrid { rows, columns, .. }
+        | PatternSpec::SquareGrid { rows, columns, .. } => (rows as u64, columns as u64),
+    };
+    if rows * columns > MAX_GRID_CELLS {
+        return Err(ModelError::field(
+            format!("{path}.rows"),
+            format!("{rows} x {columns} exceeds the limit of {MAX_GRID_CELLS} cells per face"),
+        ));
+    }
     match *p {
         PatternSpec::Checkerboard { rows, columns, cell } => {
             count("rows", rows, 2)?;
