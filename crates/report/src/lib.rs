@@ -1,0 +1,425 @@
+//! The calibration report: one self-contained HTML page (no network access, no external files)
+//! that a person reads at a glance, with SVG plots drawn from a calibration result and the
+//! observations it was computed from.
+//!
+//! Plots, each an `<svg class="plot">` inside a `<figure>` with a stable id:
+//! - `plot-residuals`: reprojection residual vectors across the image, scaled so the largest
+//!   ones are visible, with a legend arrow;
+//! - `plot-coverage`: how well the detected points cover the image, cell by cell, and the cells
+//!   that need more shots;
+//! - `plot-view-errors`: RMS reprojection error per image, with dropped images and their reasons;
+//! - `plot-distortion`: the lens distortion field, the displacement from the pinhole image.
+//!
+//! Then a table of every parameter with its standard deviation and status, the warnings, the
+//! quality verdict and the cautions. Every string that comes from input (file names, view names,
+//! messages) is escaped.
+//!
+//! This crate only builds text; it never reads or writes files.
+#![deny(missing_docs)]
+
+use std::fmt::Write;
+
+use facetcal_model::files::{CalibrationFile, ParameterStatus, ViewPoints, ViewStatus};
+use facetcal_sheet::escape_xml as esc;
+use nalgebra::Point2;
+
+/// Columns and rows of the coverage grid.
+pub const COVERAGE_GRID: (usize, usize) = (12, 9);
+
+/// The cautions every report carries.
+pub const CAUTION: &str = "A camera calibration is a measurement and can be wrong. Before this \
+result is used in anything that can hurt someone (robots, vehicles, measurement that others rely \
+on), validate it with your own independent procedure and follow the practice and regulations of \
+your field, including review by a licensed professional where that is required. The figures \
+below help judge the result; they do not replace that validation.";
+
+/// Share of coverage cells that hold at least one point, and the cells without any
+/// (column, row), for a camera of the given image size.
+pub fn coverage(width: u32, height: u32, views: &[ViewPoints]) -> (Vec<Vec<usize>>, f64) {
+    let (gx, gy) = COVERAGE_GRID;
+    let mut counts = vec![vec![0usize; gx]; gy];
+    for v in views {
+        for p in &v.points {
+            let fx = (p.image[0] + 0.5) / width as f64;
+            let fy = (p.image[1] + 0.5) / height as f64;
+            if (0.0..1.0).contains(&fx) && (0.0..1.0).contains(&fy) {
+                counts[(fy * gy as f64) as usize][(fx * gx as f64) as usize] += 1;
+            }
+        }
+    }
+    let covered = counts.iter().flatten().filter(|&&c| c > 0).count();
+    (counts, covered as f64 / (gx * gy) as f64)
+}
+
+/// A plot area mapping image pixels into an SVG of fixed width.
+struct Frame {
+    width: f64,
+    height: f64,
+    scale: f64,
+}
+
+impl Frame {
+    const W: f64 = 560.0;
+    const PAD: f64 = 24.0;
+
+    fn new(image_w: u32, image_h: u32) -> Frame {
+        let scale = Frame::W / image_w.max(1) as f64;
+        Frame { width: image_w as f64, height: image_h as f64, scale }
+    }
+
+    fn x(&self, u: f64) -> f64 {
+        Frame::PAD + (u + 0.5) * self.scale
+    }
+
+    fn y(&self, v: f64) -> f64 {
+        Frame::PAD + (v + 0.5) * self.scale
+    }
+
+    fn open(&self, o: &mut String, label: &str) {
+        let w = Frame::W + 2.0 * Frame::PAD;
+        let h = self.height * self.scale + 2.0 * Frame::PAD + 18.0;
+        let _ = writeln!(
+            o,
+            r##"<svg class="plot" role="img" aria-label="{}" viewBox="0 0 {w:.1} {h:.1}" width="{w:.0}" height="{h:.0}">"##,
+            esc(label)
+        );
+        let _ = writeln!(
+            o,
+            r##"<rect x="{:.1}" y="{:.1}" width="{:.1}" height="{:.1}" fill="#fafafa" stroke="#444" stroke-width="1"/>"##,
+            Frame::PAD,
+            Frame::PAD,
+            self.width * self.scale,
+            self.height * self.scale
+        );
+    }
+
+    fn caption(&self, o: &mut String, text: &str) {
+        let _ = writeln!(
+            o,
+            r##"<text x="{:.1}" y="{:.1}" font-size="12" fill="#222">{}</text>"##,
+            Frame::PAD,
+            self.height * self.scale + 2.0 * Frame::PAD + 10.0,
+            esc(text)
+        );
+    }
+}
+
+fn arrow(o: &mut String, x0: f64, y0: f64, x1: f64, y1: f64, colour: &str) {
+    let _ = writeln!(
+        o,
+        r##"<line x1="{x0:.2}" y1="{y0:.2}" x2="{x1:.2}" y2="{y1:.2}" stroke="{colour}" stroke-width="1.2" marker-end="url(#head)"/>"##
+    );
+}
+
+const MARKER: &str = r##"<defs><marker id="head" viewBox="0 0 6 6" refX="5" refY="3" markerWidth="5" markerHeight="5" orient="auto"><path d="M0,0 L6,3 L0,6 z" fill="context-stroke"/></marker></defs>"##;
+
+fn residual_plot(cal: &CalibrationFile, obs: &[ViewPoints]) -> String {
+    let f = Frame::new(cal.camera.width, cal.camera.height);
+    let mut o = String::new();
+    f.open(&mut o, "reprojection residuals across the image");
+    o.push_str(MARKER);
+    let mut mags: Vec<f64> = Vec::new();
+    for (v, res) in obs.iter().zip(&cal.views) {
+        if res.status != ViewStatus::Used {
+            continue;
+        }
+        mags.extend(res.residuals.iter().map(|r| r[0].hypot(r[1])));
+        let _ = v;
+    }
+    mags.sort_by(f64::total_cmp);
+    let p95 = mags.get(mags.len().saturating_sub(1) * 95 / 100).copied().unwrap_or(0.0);
+    // The 95th percentile residual is drawn 18 plot units long.
+    let gain = if p95 > 0.0 { 18.0 / p95 } else { 1.0 };
+    for (v, res) in obs.iter().zip(&cal.views) {
+        if res.status != ViewStatus::Used {
+            continue;
+        }
+        for (p, r) in v.points.iter().zip(&res.residuals) {
+            let (x, y) = (f.x(p.image[0]), f.y(p.image[1]));
+            arrow(&mut o, x, y, x + r[0] * gain, y + r[1] * gain, "#c0392b");
+        }
+    }
+    let legend_px = nice(p95.max(1e-3));
+    f.caption(&mut o, &format!("arrow of {legend_px} px drawn {:.0} units long", legend_px * gain));
+    let y = f.height * f.scale + 2.0 * Frame::PAD + 4.0;
+    arrow(&mut o, 360.0, y, 360.0 + legend_px * gain, y, "#c0392b");
+    o.push_str("</svg>\n");
+    o
+}
+
+/// A round number near `x` for legends (1, 2 or 5 times a power of ten).
+fn nice(x: f64) -> f64 {
+    let e = x.log10().floor();
+    let base = 10f64.powf(e);
+    let m = x / base;
+    let n = if m < 1.5 {
+        1.0
+    } else if m < 3.5 {
+        2.0
+    } else if m < 7.5 {
+        5.0
+    } else {
+        10.0
+    };
+    n * base
+}
+
+fn coverage_plot(cal: &CalibrationFile, obs: &[ViewPoints]) -> (String, f64) {
+    let f = Frame::new(cal.camera.width, cal.camera.height);
+    let (counts, share) = coverage(cal.camera.width, cal.camera.height, obs);
+    let (gx, gy) = COVERAGE_GRID;
+    let max = counts.iter().flatten().copied().max().unwrap_or(0).max(1);
+    let mut o = String::new();
+    f.open(&mut o, "coverage of the image by detected points");
+    let cw = f.width * f.scale / gx as f64;
+    let ch = f.height * f.scale / gy as f64;
+    for (r, row) in counts.iter().enumerate() {
+        for (c, &n) in row.iter().enumerate() {
+            let x = Frame::PAD + c as f64 * cw;
+            let y = Frame::PAD + r as f64 * ch;
+            if n == 0 {
+                let _ = writeln!(
+                    o,
+                    r##"<rect class="empty-cell" x="{x:.1}" y="{y:.1}" width="{cw:.1}" height="{ch:.1}" fill="#fdecea" stroke="#c0392b" stroke-dasharray="3 2"/>"##
+                );
+            } else {
+                let a = 0.15 + 0.85 * (n as f64 / max as f64);
+                let _ = writeln!(
+                    o,
+                    r##"<rect x="{x:.1}" y="{y:.1}" width="{cw:.1}" height="{ch:.1}" fill="#1f77b4" fill-opacity="{a:.3}" stroke="#fff"/>"##
+                );
+            }
+        }
+    }
+    for v in obs {
+        for p in &v.points {
+            let _ = writeln!(
+                o,
+                r##"<circle cx="{:.1}" cy="{:.1}" r="0.8" fill="#111"/>"##,
+                f.x(p.image[0]),
+                f.y(p.image[1])
+            );
+        }
+    }
+    f.caption(
+        &mut o,
+        &format!(
+            "{:.0} % of the {gx} x {gy} cells hold points; dashed red cells need shots with the target there",
+            share * 100.0
+        ),
+    );
+    o.push_str("</svg>\n");
+    (o, share)
+}
+
+fn view_error_plot(cal: &CalibrationFile) -> String {
+    let n = cal.views.len().max(1);
+    let row = 18.0;
+    let label_w = 200.0;
+    let bar_w = 320.0;
+    let h = n as f64 * row + 40.0;
+    let max = cal.views.iter().filter_map(|v| v.rms_px).fold(cal.rms_px, f64::max).max(1e-6);
+    let mut o = String::new();
+    let _ = writeln!(
+        o,
+        r##"<svg class="plot" role="img" aria-label="RMS reprojection error per image" viewBox="0 0 {:.0} {h:.0}" width="{:.0}" height="{h:.0}">"##,
+        label_w + bar_w + 80.0,
+        label_w + bar_w + 80.0
+    );
+    for (i, v) in cal.views.iter().enumerate() {
+        let y = 10.0 + i as f64 * row;
+        let _ = writeln!(
+            o,
+            r##"<text x="{:.0}" y="{:.1}" font-size="11" text-anchor="end">{}</text>"##,
+            label_w - 6.0,
+            y + 12.0,
+            esc(&v.name)
+        );
+        match (v.status, v.rms_px) {
+            (ViewStatus::Used, Some(rms)) => {
+                let w = bar_w * rms / max;
+                let _ = writeln!(
+                    o,
+                    r##"<rect class="bar" x="{label_w:.0}" y="{:.1}" width="{w:.1}" height="{:.1}" fill="#2e86c1"/><text x="{:.1}" y="{:.1}" font-size="11">{rms:.3} px</text>"##,
+                    y + 2.0,
+                    row - 5.0,
+                    label_w + w + 4.0,
+                    y + 12.0
+                );
+            }
+            _ => {
+                let reason = v.reason.as_deref().unwrap_or("dropped");
+                let _ = writeln!(
+                    o,
+                    r##"<text x="{label_w:.0}" y="{:.1}" font-size="11" fill="#7f8c8d">dropped: {}</text>"##,
+                    y + 12.0,
+                    esc(reason)
+                );
+            }
+        }
+    }
+    let x = label_w + bar_w * cal.rms_px / max;
+    let _ = writeln!(
+        o,
+        r##"<line x1="{x:.1}" y1="4" x2="{x:.1}" y2="{:.1}" stroke="#c0392b" stroke-dasharray="4 3"/><text x="{x:.1}" y="{:.1}" font-size="11" fill="#c0392b">overall {:.3} px</text>"##,
+        h - 24.0,
+        h - 10.0,
+        cal.rms_px
+    );
+    o.push_str("</svg>\n");
+    o
+}
+
+fn distortion_plot(cal: &CalibrationFile) -> String {
+    let cam = &cal.camera;
+    let f = Frame::new(cam.width, cam.height);
+    let mut o = String::new();
+    f.open(&mut o, "lens distortion field");
+    o.push_str(MARKER);
+    let (nx, ny) = (16, 12);
+    let mut field = Vec::new();
+    for j in 0..=ny {
+        for i in 0..=nx {
+            let p = Point2::new(
+                -0.5 + cam.width as f64 * i as f64 / nx as f64,
+                -0.5 + cam.height as f64 * j as f64 / ny as f64,
+            );
+            if let Ok(q) = cam.undistort_pixel(&p) {
+                let d = p - q;
+                if d.x.is_finite() && d.y.is_finite() {
+                    field.push((p, d));
+                }
+            }
+        }
+    }
+    let max = field.iter().map(|(_, d)| d.norm()).fold(0.0, f64::max);
+    let gain = if max > 0.0 { 0.9 * (f.width * f.scale / nx as f64) / max } else { 0.0 };
+    for (p, d) in &field {
+        let (x, y) = (f.x(p.x), f.y(p.y));
+        if gain > 0.0 {
+            arrow(&mut o, x - d.x * gain, y - d.y * gain, x, y, "#8e44ad");
+        }
+        let _ = writeln!(o, r##"<circle cx="{x:.1}" cy="{y:.1}" r="1.2" fill="#8e44ad"/>"##);
+    }
+    f.caption(
+        &mut o,
+        &format!(
+            "{} model; arrows run from the pinhole position to the observed one; largest shift {max:.1} px",
+            cam.distortion.kind().name()
+        ),
+    );
+    o.push_str("</svg>\n");
+    o
+}
+
+fn parameter_table(cal: &CalibrationFile) -> String {
+    let mut o = String::from(
+        "<table class=\"params\"><thead><tr><th>parameter</th><th>value</th><th>standard deviation</th><th>status</th></tr></thead><tbody>\n",
+    );
+    for p in &cal.parameters {
+        let sd = p.std_dev.map(|s| format!("{s:.4e}")).unwrap_or_else(|| "-".into());
+        let status = match p.status {
+            ParameterStatus::Estimated => "estimated",
+            ParameterStatus::Fixed => "fixed",
+            ParameterStatus::Tied => "tied",
+        };
+        let _ = writeln!(
+            o,
+            "<tr><td>{}</td><td>{:.6}</td><td>{sd}</td><td>{status}</td></tr>",
+            esc(&p.name),
+            p.value
+        );
+    }
+    o.push_str("</tbody></table>\n");
+    o
+}
+
+/// The report page.
+pub fn calibration_html(title: &str, cal: &CalibrationFile, observations: &[ViewPoints]) -> String {
+    let (coverage_svg, share) = coverage_plot(cal, observations);
+    let used = cal.views.iter().filter(|v| v.status == ViewStatus::Used).count();
+    let mut o = String::new();
+    let _ = write!(
+        o,
+        r#"<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta http-equiv="Content-Security-Policy" content="default-src 'none'; style-src 'unsafe-inline'; script-src 'unsafe-inline'; img-src data:">
+<title>{t}</title>
+<style>
+body {{ font-family: sans-serif; margin: 24px; color: #222; max-width: 1240px; }}
+h1 {{ font-size: 22px; margin-bottom: 4px; }}
+.caution {{ border-left: 4px solid #c0392b; background: #fdf2f0; padding: 8px 12px; }}
+.grid {{ display: flex; flex-wrap: wrap; gap: 16px; }}
+figure {{ margin: 0; border: 1px solid #ddd; padding: 8px; }}
+figcaption {{ font-weight: bold; margin-bottom: 4px; }}
+table {{ border-collapse: collapse; margin: 8px 0; }}
+td, th {{ border: 1px solid #ccc; padding: 3px 8px; text-align: right; }}
+td:first-child, th:first-child {{ text-align: left; }}
+.warn {{ color: #a04000; }}
+</style></head><body>
+<h1>{t}</h1>
+<p>{model} model, image {w} x {h} px, {used} of {n} images used, RMS reprojection error <b>{rms:.3} px</b>, image coverage {cov:.0} %.</p>
+<p class="caution">{caution}</p>
+"#,
+        t = esc(title),
+        model = esc(cal.camera.distortion.kind().name()),
+        w = cal.camera.width,
+        h = cal.camera.height,
+        n = cal.views.len(),
+        rms = cal.rms_px,
+        cov = share * 100.0,
+        caution = esc(CAUTION),
+    );
+    if let Some(v) = &cal.verdict {
+        let _ = writeln!(o, "<h2>Verdict</h2><pre class=\"verdict\">{}</pre>", esc(&v.to_string()));
+    }
+    o.push_str("<h2>Parameters</h2>\n");
+    o.push_str(&parameter_table(cal));
+    o.push_str("<h2>Warnings</h2>\n<ul>\n");
+    if cal.warnings.is_empty() {
+        o.push_str("<li>none</li>\n");
+    }
+    for w in &cal.warnings {
+        let _ = writeln!(o, "<li class=\"warn\">{}</li>", esc(&w.message));
+    }
+    let _ = writeln!(
+        o,
+        "</ul>\n<p>Solver: {} iterations, cost {:.6e} to {:.6e}, stopped: {}.</p>",
+        cal.summary.iterations,
+        cal.summary.initial_cost,
+        cal.summary.final_cost,
+        esc(&cal.summary.termination)
+    );
+    o.push_str("<div class=\"grid\">\n");
+    let figures = [
+        ("plot-residuals", "Residuals across the image", residual_plot(cal, observations)),
+        ("plot-coverage", "Coverage and where more shots are needed", coverage_svg),
+        ("plot-view-errors", "Error per image", view_error_plot(cal)),
+        ("plot-distortion", "Distortion field", distortion_plot(cal)),
+    ];
+    for (id, caption, svg) in figures {
+        let _ =
+            writeln!(o, "<figure id=\"{id}\"><figcaption>{caption}</figcaption>\n{svg}</figure>");
+    }
+    o.push_str("</div>\n");
+    // After layout, each plot records its drawn size, so a headless browser's DOM dump proves
+    // that every plot rendered.
+    o.push_str(
+        "<script>window.addEventListener('load', function () { document.querySelectorAll('svg.plot').forEach(function (s) { var b = s.getBoundingClientRect(); s.setAttribute('data-drawn', Math.round(b.width) + 'x' + Math.round(b.height) + ':' + s.querySelectorAll('*').length); }); document.body.setAttribute('data-ready', 'yes'); });</script>\n",
+    );
+    o.push_str("</body></html>\n");
+    o
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn nice_numbers_for_legends() {
+        assert_eq!(nice(0.23), 0.2);
+        assert_eq!(nice(0.8), 1.0);
+        assert_eq!(nice(4.0), 5.0);
+        assert_eq!(nice(31.0), 20.0);
+    }
+}
