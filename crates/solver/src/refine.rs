@@ -1,0 +1,442 @@
+//! The problem and its minimiser: Levenberg-Marquardt over the shared parameters (free camera
+//! parameters, optional face corrections) and one pose per view, with the pose blocks
+//! eliminated by the Schur complement.
+//!
+//! Per view `v`, with `Jg` the Jacobian of its residuals with respect to the shared parameters
+//! and `Jp` with respect to its pose, the normal equations are accumulated in parallel as
+//! `U_v = Jg^T W Jg`, `W_v = Jg^T W Jp`, `V_v = Jp^T W Jp`, `g_v = Jg^T W r`, `e_v = Jp^T W r`
+//! and then reduced in view order, so the result does not depend on the thread count. The
+//! reduced system is `S dg = g - sum W_v V_v^-1 e_v` with `S = U - sum W_v V_v^-1 W_v^T`
+//! (D. C. Brown, "The bundle adjustment: progress and prospects", 1976; B. Triggs et al.,
+//! "Bundle adjustment: a modern synthesis", 1999, section 6.1); then
+//! `dp_v = V_v^-1 (e_v - W_v^T dg)`. No Jacobian of the whole problem is ever formed.
+
+use facetcal_model::{Camera, Pose, cross_matrix};
+use nalgebra::{DMatrix, DVector, Matrix6, Point2, Point3, SMatrix, Vector6};
+use rayon::prelude::*;
+
+use crate::options::{Loss, Options};
+use crate::summary::{IterationRecord, Termination};
+
+/// Which parameters are shared by all views and how they map onto the camera.
+#[derive(Clone, Debug)]
+pub(crate) struct Layout {
+    /// Free camera columns: each a list of `(camera parameter index, coefficient)`; fy tied to
+    /// fx is the column `[(0, 1), (1, fy / fx)]`.
+    pub cam_columns: Vec<Vec<(usize, f64)>>,
+    /// Names of the free camera columns.
+    pub cam_names: Vec<String>,
+    /// Number of faces with a free correction (slots `0..faces`).
+    pub faces: usize,
+}
+
+impl Layout {
+    pub fn n_global(&self) -> usize {
+        self.cam_columns.len() + 6 * self.faces
+    }
+}
+
+/// The observations of one view as the minimiser sees them.
+#[derive(Clone, Debug)]
+pub(crate) struct ViewData {
+    pub targets: Vec<Point3<f64>>,
+    pub images: Vec<Point2<f64>>,
+    /// Face correction slot of each point, `None` for the reference face.
+    pub face_slot: Vec<Option<usize>>,
+    pub inlier: Vec<bool>,
+    pub active: bool,
+}
+
+impl ViewData {
+    pub fn inliers(&self) -> usize {
+        self.inlier.iter().filter(|&&b| b).count()
+    }
+}
+
+/// The estimated quantities.
+#[derive(Clone, Debug)]
+pub(crate) struct State {
+    pub camera: Camera,
+    pub poses: Vec<Pose>,
+    pub faces: Vec<Pose>,
+}
+
+impl State {
+    /// The target-frame point after the face correction.
+    pub fn corrected(&self, view: &ViewData, k: usize) -> Point3<f64> {
+        match view.face_slot[k] {
+            Some(f) => self.faces[f].transform(&view.targets[k]),
+            None => view.targets[k],
+        }
+    }
+
+    /// Residual `observed - projected` of one point, `None` outside the model's domain.
+    pub fn residual(&self, v: usize, view: &ViewData, k: usize) -> Option<nalgebra::Vector2<f64>> {
+        let x = self.poses[v].transform(&self.corrected(view, k));
+        self.camera.project(&x).ok().map(|p| view.images[k] - p)
+    }
+}
+
+/// One view's share of the normal equations.
+pub(crate) struct ViewBlock {
+    pub u: DMatrix<f64>,
+    pub w: DMatrix<f64>,
+    pub v: Matrix6<f64>,
+    pub g: DVector<f64>,
+    pub e: Vector6<f64>,
+    /// `1/2 sum rho(|r|^2)`; infinite if a point left the model's domain.
+    pub cost: f64,
+}
+
+/// Cost of one view without Jacobians.
+fn view_cost(state: &State, v: usize, view: &ViewData, loss: &Loss) -> f64 {
+    let mut cost = 0.0;
+    for k in 0..view.targets.len() {
+        if !view.inlier[k] {
+            continue;
+        }
+        match state.residual(v, view, k) {
+            Some(r) => cost += 0.5 * loss.evaluate(r.norm_squared()).0,
+            None => return f64::INFINITY,
+        }
+    }
+    cost
+}
+
+fn view_block(state: &State, layout: &Layout, v: usize, view: &ViewData, loss: &Loss) -> ViewBlock {
+    let ng = layout.n_global();
+    let nc = layout.cam_columns.len();
+    let mut u = DMatrix::zeros(ng, ng);
+    let mut w = DMatrix::zeros(ng, 6);
+    let mut vv = Matrix6::zeros();
+    let mut g = DVector::zeros(ng);
+    let mut e = Vector6::zeros();
+    let mut cost = 0.0;
+    let mut jg = DMatrix::zeros(2, ng);
+    let pose = &state.poses[v];
+    for k in 0..view.targets.len() {
+        if !view.inlier[k] {
+            continue;
+        }
+        let x = state.corrected(view, k);
+        let Ok(pr) = state.camera.project_posed(pose, &x) else {
+            cost = f64::INFINITY;
+            break;
+        };
+        let r = view.images[k] - pr.pixel;
+        let (rho, weight) = loss.evaluate(r.norm_squared());
+        cost += 0.5 * rho;
+        jg.fill(0.0);
+        for (c, col) in layout.cam_columns.iter().enumerate() {
+            for &(idx, coef) in col {
+                jg[(0, c)] += coef * pr.d_params[(0, idx)];
+                jg[(1, c)] += coef * pr.d_params[(1, idx)];
+            }
+        }
+        if let Some(f) = view.face_slot[k] {
+            // X' = exp([w]x) R_f X + t_f + dt: dX'/dw = -[R_f X]x, dX'/ddt = I.
+            let rx = state.faces[f].rotation * view.targets[k].coords;
+            let d_w = pr.d_target_point * (-cross_matrix(&rx));
+            for row in 0..2 {
+                for j in 0..3 {
+                    jg[(row, nc + 6 * f + j)] = d_w[(row, j)];
+                    jg[(row, nc + 6 * f + 3 + j)] = pr.d_target_point[(row, j)];
+                }
+            }
+        }
+        let jp: SMatrix<f64, 2, 6> = pr.d_pose;
+        for i in 0..ng {
+            let (a0, a1) = (weight * jg[(0, i)], weight * jg[(1, i)]);
+            if a0 == 0.0 && a1 == 0.0 {
+                continue;
+            }
+            for j in i..ng {
+                u[(i, j)] += a0 * jg[(0, j)] + a1 * jg[(1, j)];
+            }
+            for j in 0..6 {
+                w[(i, j)] += a0 * jp[(0, j)] + a1 * jp[(1, j)];
+            }
+            g[i] += a0 * r.x + a1 * r.y;
+        }
+        vv += jp.transpose() * jp * weight;
+        e += jp.transpose() * r * weight;
+    }
+    for i in 0..ng {
+        for j in 0..i {
+            u[(i, j)] = u[(j, i)];
+        }
+    }
+    ViewBlock { u, w, v: vv, g, e, cost }
+}
+
+/// The normal-equation blocks of every active view (`None` for inactive ones), computed in
+/// parallel, returned in view order.
+pub(crate) fn blocks(
+    state: &State,
+    layout: &Layout,
+    views: &[ViewData],
+    loss: &Loss,
+) -> Vec<Option<ViewBlock>> {
+    views
+        .par_iter()
+        .enumerate()
+        .map(|(v, view)| view.active.then(|| view_block(state, layout, v, view, loss)))
+        .collect()
+}
+
+/// Total cost, summed in view order.
+pub(crate) fn total_cost(state: &State, views: &[ViewData], loss: &Loss) -> f64 {
+    let per: Vec<f64> = views
+        .par_iter()
+        .enumerate()
+        .map(|(v, view)| if view.active { view_cost(state, v, view, loss) } else { 0.0 })
+        .collect();
+    per.iter().sum()
+}
+
+/// Inverse of a symmetric positive definite matrix through Jacobi scaling and Cholesky.
+pub(crate) fn spd_inverse(a: &DMatrix<f64>) -> Option<DMatrix<f64>> {
+    let n = a.nrows();
+    if n == 0 {
+        return Some(DMatrix::zeros(0, 0));
+    }
+    let d: Vec<f64> = (0..n).map(|i| a[(i, i)]).collect();
+    if d.iter().any(|&x| !(x > 0.0 && x.is_finite())) {
+        return None;
+    }
+    let s = DVector::from_iterator(n, d.iter().map(|x| 1.0 / x.sqrt()));
+    let scaled = DMatrix::from_fn(n, n, |i, j| a[(i, j)] * s[i] * s[j]);
+    let inv = scaled.cholesky()?.inverse();
+    Some(DMatrix::from_fn(n, n, |i, j| inv[(i, j)] * s[i] * s[j]))
+}
+
+fn inverse6(a: &Matrix6<f64>) -> Option<Matrix6<f64>> {
+    let d = a.diagonal();
+    if d.iter().any(|&x| !(x > 0.0 && x.is_finite())) {
+        return None;
+    }
+    let s = d.map(|x| 1.0 / x.sqrt());
+    let scaled = Matrix6::from_fn(|i, j| a[(i, j)] * s[i] * s[j]);
+    let inv = scaled.cholesky()?.inverse();
+    Some(Matrix6::from_fn(|i, j| inv[(i, j)] * s[i] * s[j]))
+}
+
+/// The reduced camera system for a damping `lambda` (0 for the covariance): `S`, its right
+/// side and the per-view `V_v^-1` (damped).
+pub(crate) struct Reduced {
+    pub s: DMatrix<f64>,
+    pub rhs: DVector<f64>,
+    pub v_inv: Vec<Option<Matrix6<f64>>>,
+}
+
+/// One view's `(V^-1, W V^-1 W^T, W V^-1 e)`.
+type ViewReduction = (Matrix6<f64>, DMatrix<f64>, DVector<f64>);
+
+/// A shared increment and one pose increment per view (`None` for inactive views).
+type Step = (DVector<f64>, Vec<Option<Vector6<f64>>>);
+
+pub(crate) fn reduce(blocks: &[Option<ViewBlock>], ng: usize, lambda: f64) -> Option<Reduced> {
+    let mut u = DMatrix::zeros(ng, ng);
+    let mut g = DVector::zeros(ng);
+    for b in blocks.iter().flatten() {
+        u += &b.u;
+        g += &b.g;
+    }
+    for i in 0..ng {
+        u[(i, i)] += lambda * u[(i, i)];
+    }
+    // Per view: V_v^-1, Y = W V^-1, the products Y W^T and Y e; computed in parallel,
+    // subtracted in view order.
+    let parts: Vec<Option<Option<ViewReduction>>> = blocks
+        .par_iter()
+        .map(|b| {
+            b.as_ref().map(|b| {
+                let mut vd = b.v;
+                for i in 0..6 {
+                    vd[(i, i)] += lambda * vd[(i, i)];
+                }
+                let vinv = inverse6(&vd)?;
+                let y = &b.w * vinv;
+                Some((vinv, &y * b.w.transpose(), &y * b.e))
+            })
+        })
+        .collect();
+    let mut v_inv = Vec::with_capacity(parts.len());
+    for p in parts {
+        match p {
+            None => v_inv.push(None),
+            Some(None) => return None,
+            Some(Some((vinv, yw, ye))) => {
+                u -= yw;
+                g -= ye;
+                v_inv.push(Some(vinv));
+            }
+        }
+    }
+    Some(Reduced { s: u, rhs: g, v_inv })
+}
+
+/// A damped step: shared increment and one pose increment per view.
+fn step(blocks: &[Option<ViewBlock>], ng: usize, lambda: f64) -> Option<Step> {
+    let red = reduce(blocks, ng, lambda)?;
+    let dg = if ng == 0 {
+        DVector::zeros(0)
+    } else {
+        let d: Vec<f64> = (0..ng).map(|i| red.s[(i, i)]).collect();
+        if d.iter().any(|&x| !(x > 0.0 && x.is_finite())) {
+            return None;
+        }
+        let sc = DVector::from_iterator(ng, d.iter().map(|x| 1.0 / x.sqrt()));
+        let scaled = DMatrix::from_fn(ng, ng, |i, j| red.s[(i, j)] * sc[i] * sc[j]);
+        let rhs = red.rhs.component_mul(&sc);
+        scaled.cholesky()?.solve(&rhs).component_mul(&sc)
+    };
+    let dp = blocks
+        .iter()
+        .zip(&red.v_inv)
+        .map(|(b, vi)| match (b, vi) {
+            (Some(b), Some(vi)) => Some(vi * (b.e - b.w.transpose() * &dg)),
+            _ => None,
+        })
+        .collect();
+    Some((dg, dp))
+}
+
+fn apply(state: &State, layout: &Layout, dg: &DVector<f64>, dp: &[Option<Vector6<f64>>]) -> State {
+    let mut p = state.camera.params();
+    for (c, col) in layout.cam_columns.iter().enumerate() {
+        for &(idx, coef) in col {
+            p[idx] += coef * dg[c];
+        }
+    }
+    let nc = layout.cam_columns.len();
+    let faces = state
+        .faces
+        .iter()
+        .enumerate()
+        .map(|(f, pose)| {
+            pose.perturbed(&Vector6::from_iterator(dg.rows(nc + 6 * f, 6).iter().copied()))
+        })
+        .collect();
+    let poses = state
+        .poses
+        .iter()
+        .zip(dp)
+        .map(|(pose, d)| match d {
+            Some(d) => pose.perturbed(d),
+            None => *pose,
+        })
+        .collect();
+    State { camera: state.camera.with_params(&p), poses, faces }
+}
+
+fn parameter_norm(state: &State, layout: &Layout, views: &[ViewData]) -> f64 {
+    let p = state.camera.params();
+    let mut s: f64 = layout.cam_columns.iter().map(|c| p[c[0].0].powi(2)).sum();
+    for f in &state.faces {
+        s += f.axis_angle().norm_squared() + f.translation.norm_squared();
+    }
+    for (pose, v) in state.poses.iter().zip(views) {
+        if v.active {
+            s += pose.axis_angle().norm_squared() + pose.translation.norm_squared();
+        }
+    }
+    s.sqrt()
+}
+
+/// What one minimisation did.
+pub(crate) struct Run {
+    pub iterations: usize,
+    pub termination: Termination,
+    pub records: Vec<IterationRecord>,
+}
+
+/// Levenberg-Marquardt from `state`, which it updates.
+pub(crate) fn minimise(state: &mut State, layout: &Layout, views: &[ViewData], o: &Options) -> Run {
+    let ng = layout.n_global();
+    let mut bl = blocks(state, layout, views, &o.loss);
+    let mut cost: f64 = bl.iter().flatten().map(|b| b.cost).sum();
+    let mut records = Vec::new();
+    let mut lambda = o.initial_damping;
+    let mut nu = 2.0;
+    let mut iterations = 0;
+    let termination = loop {
+        if !cost.is_finite() {
+            break Termination::InvalidStart;
+        }
+        // Gradient test: the largest cosine between the residual vector and a column.
+        let mut worst: f64 = 0.0;
+        let mut ug = DVector::zeros(ng);
+        let mut gg = DVector::zeros(ng);
+        for b in bl.iter().flatten() {
+            ug += b.u.diagonal();
+            gg += &b.g;
+            for i in 0..6 {
+                if b.v[(i, i)] > 0.0 {
+                    worst = worst.max(b.e[i].abs() / b.v[(i, i)].sqrt());
+                }
+            }
+        }
+        for i in 0..ng {
+            if ug[i] > 0.0 {
+                worst = worst.max(gg[i].abs() / ug[i].sqrt());
+            }
+        }
+        if cost == 0.0 || worst <= o.gradient_tolerance * (2.0 * cost).sqrt() {
+            break Termination::GradientTolerance;
+        }
+        if iterations >= o.max_iterations {
+            break Termination::MaxIterations;
+        }
+        if lambda > o.max_damping {
+            break Termination::NoProgress;
+        }
+        iterations += 1;
+        let Some((dg, dp)) = step(&bl, ng, lambda) else {
+            lambda *= nu;
+            nu *= 2.0;
+            records.push(IterationRecord { cost, lambda, step_norm: 0.0, accepted: false });
+            continue;
+        };
+        let step_norm =
+            (dg.norm_squared() + dp.iter().flatten().map(|d| d.norm_squared()).sum::<f64>()).sqrt();
+        let xnorm = parameter_norm(state, layout, views);
+        if step_norm <= o.parameter_tolerance * (xnorm + o.parameter_tolerance) {
+            records.push(IterationRecord { cost, lambda, step_norm, accepted: false });
+            break Termination::ParameterTolerance;
+        }
+        // Predicted decrease of the quadratic model: 1/2 delta^T (lambda diag(A) delta + g).
+        let mut predicted = 0.0;
+        for (b, d) in bl.iter().zip(&dp) {
+            if let (Some(b), Some(d)) = (b, d) {
+                for i in 0..6 {
+                    predicted += 0.5 * d[i] * (lambda * b.v[(i, i)] * d[i] + b.e[i]);
+                }
+            }
+        }
+        for i in 0..ng {
+            predicted += 0.5 * dg[i] * (lambda * ug[i] * dg[i] + gg[i]);
+        }
+        let candidate = apply(state, layout, &dg, &dp);
+        let new_cost = total_cost(&candidate, views, &o.loss);
+        let rho = (cost - new_cost) / predicted;
+        if new_cost.is_finite() && new_cost < cost && predicted > 0.0 {
+            records.push(IterationRecord { cost: new_cost, lambda, step_norm, accepted: true });
+            let decrease = cost - new_cost;
+            *state = candidate;
+            lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
+            nu = 2.0;
+            let old = cost;
+            bl = blocks(state, layout, views, &o.loss);
+            cost = bl.iter().flatten().map(|b| b.cost).sum();
+            if decrease <= o.function_tolerance * old {
+                break Termination::FunctionTolerance;
+            }
+        } else {
+            records.push(IterationRecord { cost, lambda, step_norm, accepted: false });
+            lambda *= nu;
+            nu *= 2.0;
+        }
+    };
+    Run { iterations, termination, records }
+}
