@@ -310,8 +310,11 @@ pub fn zhang_intrinsics(
     let rows = 2 * homographies.len() + usize::from(zero_skew);
     let mut v = DMatrix::zeros(rows, 6);
     for (k, h) in homographies.iter().enumerate() {
+        // The constraints involve only h1 and h2 and are homogeneous of degree 2 in them, so
+        // scaling both to unit mean length balances the rows whatever the target's unit.
         let hn = norm * h;
-        let hn = hn / hn.norm();
+        let scale = 0.5 * (hn.column(0).norm() + hn.column(1).norm());
+        let hn = hn / scale;
         let v12 = zhang_row(&hn, 0, 1);
         let v11 = zhang_row(&hn, 0, 0);
         let v22 = zhang_row(&hn, 1, 1);
