@@ -19,12 +19,16 @@ pub struct DetectorOptions {
     /// Radius, pixels, of the outer sampling ring of the checker ring test (the inner one is
     /// 0.6 times it); should stay below a third of the smallest cell side. Default 5.
     pub ring_radius: f64,
-    /// Radius, pixels, of the disc of gradients a checker corner is located from (Gaussian
-    /// weights of standard deviation half the radius). Default 5.
-    pub refine_radius: f64,
+    /// Standard deviation, pixels, of the Gaussian whose smoothed image's saddle point locates a
+    /// checker corner; the pixels used lie within `3 refine_sigma` of the corner. Default 2.
+    pub refine_sigma: f64,
     /// Largest ring asymmetry `sum |v(t) - v(t + pi)| / sum |v(t) - mean|` of a checker corner.
     /// Default 0.35.
     pub max_asymmetry: f64,
+    /// Smallest ratio of the two Hessian eigenvalue magnitudes at a checker corner
+    /// (`tan^2(alpha / 2)` for edges meeting at `alpha`). Default 0.15 (`alpha` down to 42
+    /// degrees).
+    pub min_saddle_balance: f64,
     /// Saddle responses must exceed this many standard deviations of the response to the
     /// measured noise. Default 4.
     pub noise_factor: f64,
@@ -48,8 +52,9 @@ impl Default for DetectorOptions {
             min_contrast: 0.08,
             checker_smoothing: 1.5,
             ring_radius: 5.0,
-            refine_radius: 5.0,
+            refine_sigma: 2.0,
             max_asymmetry: 0.35,
+            min_saddle_balance: 0.15,
             noise_factor: 4.0,
             max_candidates: 200_000,
             threshold_radius: 40,
@@ -84,11 +89,14 @@ impl DetectorOptions {
         if !in_range(self.ring_radius, 2.0, 50.0) {
             return bad("ring_radius", self.ring_radius, "must lie in [2, 50] px");
         }
-        if !in_range(self.refine_radius, 1.5, 50.0) {
-            return bad("refine_radius", self.refine_radius, "must lie in [1.5, 50] px");
+        if !in_range(self.refine_sigma, 0.8, 20.0) {
+            return bad("refine_sigma", self.refine_sigma, "must lie in [0.8, 20] px");
         }
         if !in_range(self.max_asymmetry, 0.0, 2.0) {
             return bad("max_asymmetry", self.max_asymmetry, "must lie in [0, 2]");
+        }
+        if !in_range(self.min_saddle_balance, 0.0, 1.0) {
+            return bad("min_saddle_balance", self.min_saddle_balance, "must lie in [0, 1]");
         }
         if !in_range(self.noise_factor, 0.0, 100.0) {
             return bad("noise_factor", self.noise_factor, "must lie in [0, 100]");
