@@ -1,1 +1,582 @@
-//! placeholder
+//! Identifies one image's detections against a target model: which face, row, column (and
+//! square corner) each detected feature is, or why it was left out.
+//!
+//! The matcher owns the lattice topology of the detections ([`lattice`](crate) growth from a
+//! seed with local homography fits), the placement of each face candidate on the target by its
+//! face code (see the decision rule in the `place` module's documentation, repeated in
+//! DEVELOPERS.md), the per-face residual test of every final identity, and the output types
+//! ([`Identification`], [`DetectionsFile`]).
+//!
+//! A wrong identity is far worse than a missing one: a candidate is identified only when exactly
+//! one placement agrees with every seen mark and every other placement disagrees with at least
+//! two, and never in a mirrored orientation.
+//!
+//! ```
+//! use facetcal_matcher::{MatchOptions, identify};
+//! use facetcal_matcher::synthetic::{Scene, synthesize};
+//! use facetcal_model::{Camera, Pose, Target};
+//! use nalgebra::Vector3;
+//! let target = Target::from_json(include_str!("../../../targets/checkerboard.json")).unwrap();
+//! let camera = Camera::pinhole(1280, 960, 1100.0, 1100.0, 639.5, 479.5);
+//! let pose = Pose::from_axis_angle(Vector3::new(0.2, -0.1, 0.05), Vector3::new(-120.0, -90.0, 700.0));
+//! let synth = synthesize(&target, &camera, &pose, &Scene::default(), 1);
+//! let id = identify(&synth.detections, &target, &MatchOptions::default()).unwrap();
+//! assert_eq!(id.point_count(), synth.true_count());
+//! ```
+//!
+//! The matcher never reads files and never sees pixels.
+#![deny(missing_docs)]
+
+mod error;
+mod fit;
+mod lattice;
+mod output;
+mod place;
+pub mod synthetic;
+
+use std::collections::{BTreeMap, BTreeSet};
+
+use facetcal_detector::Detections;
+use facetcal_model::{DotLayout, Face, FeatureId, Ink, PatternKind, PatternSpec, Target};
+use nalgebra::{Matrix2, Point2, Vector2};
+
+pub use error::MatchError;
+pub use fit::{PlaneMap, fit_affine, fit_homography};
+pub use output::{
+    Correspondence, DETECTIONS_FORMAT, DETECTIONS_VERSION, DetectionKind, DetectionRef,
+    DetectionsFile, FaceIdentification, FileFace, FileLeftOut, FilePoint, Identification, LeftOut,
+    LeftOutReason, Rejection,
+};
+
+use lattice::{Builder, Cell, Component, Node, local_map, loo_residual};
+use place::{CandidateView, Placement, SeenMark, inside, place, rotate, unrotate};
+
+/// How the matcher decides. Every tolerance is relative to the local feature spacing in the
+/// image, so the defaults hold at any image scale.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct MatchOptions {
+    /// Growth gate: the nearest detection is accepted only within `gate` x the local spacing of
+    /// the prediction. Default 0.3.
+    pub gate: f64,
+    /// Residual test: a node whose distance from the prediction of its neighbours' local fit
+    /// exceeds `residual` x the local spacing is removed. Default 0.15.
+    pub residual: f64,
+    /// Smallest face candidate, in lattice nodes. Default 9.
+    pub min_nodes: usize,
+    /// Seen marks the accepted placement must explain. Default 1.
+    pub min_marks: usize,
+    /// Conflicts every other placement must have. Default 2 (one mark error cannot mislabel).
+    pub conflict_margin: usize,
+    /// A mark belongs to a cell when it lies within this many lattice units of the cell centre
+    /// along each axis. Default 0.25.
+    pub mark_tolerance: f64,
+}
+
+impl Default for MatchOptions {
+    fn default() -> Self {
+        MatchOptions {
+            gate: 0.3,
+            residual: 0.15,
+            min_nodes: 9,
+            min_marks: 1,
+            conflict_margin: 2,
+            mark_tolerance: 0.25,
+        }
+    }
+}
+
+impl MatchOptions {
+    /// Checks every field, naming the first bad one.
+    pub fn validate(&self) -> Result<(), MatchError> {
+        let bad = |field: &'static str, value: f64, need: &'static str| {
+            Err(MatchError::InvalidOption { field, value, need })
+        };
+        if !(self.gate > 0.0 && self.gate <= 0.5) {
+            return bad("gate", self.gate, "in (0, 0.5]");
+        }
+        if !(self.residual > 0.0 && self.residual <= self.gate) {
+            return bad("residual", self.residual, "in (0, gate]");
+        }
+        if self.min_nodes < 4 {
+            return bad("min_nodes", self.min_nodes as f64, "at least 4");
+        }
+        if self.conflict_margin < 1 {
+            return bad("conflict_margin", self.conflict_margin as f64, "at least 1");
+        }
+        if !(self.mark_tolerance > 0.0 && self.mark_tolerance < 0.5) {
+            return bad("mark_tolerance", self.mark_tolerance, "in (0, 0.5)");
+        }
+        Ok(())
+    }
+}
+
+fn finite(p: &Point2<f64>) -> bool {
+    p.x.is_finite() && p.y.is_finite()
+}
+
+/// The intersection of the diagonals of a quadrilateral: the image of the centre of a square
+/// under any homography, unlike the mean of the corners.
+fn diagonal_centre(c: &[Point2<f64>; 4]) -> Option<Point2<f64>> {
+    let (p, r) = (c[0], c[2] - c[0]);
+    let (q, s) = (c[1], c[3] - c[1]);
+    let den = r.x * s.y - r.y * s.x;
+    if den.abs() < 1e-12 {
+        return None;
+    }
+    let t = ((q - p).x * s.y - (q - p).y * s.x) / den;
+    let x = p + r * t;
+    finite(&x).then_some(x)
+}
+
+/// The inverse of the affine part that a dot's circle suffered: maps the ellipse to a circle.
+fn rectifier(e: &facetcal_detector::Ellipse) -> Matrix2<f64> {
+    if !(e.semi_major.is_finite() && e.semi_minor.is_finite() && e.angle.is_finite())
+        || e.semi_minor <= 0.0
+        || e.semi_major < e.semi_minor
+    {
+        return Matrix2::identity();
+    }
+    let (s, c) = e.angle.sin_cos();
+    let rot = Matrix2::new(c, -s, s, c);
+    let scale = Matrix2::new(1.0, 0.0, 0.0, e.semi_major / e.semi_minor);
+    scale * rot.transpose()
+}
+
+/// The nodes of one pattern kind with the detection each came from.
+struct KindNodes {
+    nodes: Vec<Node>,
+    refs: Vec<DetectionRef>,
+}
+
+fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) -> KindNodes {
+    let mut nodes = Vec::new();
+    let mut refs = Vec::new();
+    let mut push = |r: DetectionRef, n: Option<Node>, left_out: &mut Vec<LeftOut>| match n {
+        Some(n) => {
+            nodes.push(n);
+            refs.push(r);
+        }
+        None => left_out.push(LeftOut { detection: r, reason: LeftOutReason::NotFinite }),
+    };
+    match kind {
+        PatternKind::Checkerboard => {
+            for (index, c) in det.checker_corners.iter().enumerate() {
+                let ok = finite(&c.position)
+                    && c.edges.iter().all(|e| e.x.is_finite() && e.y.is_finite() && e.norm() > 0.0);
+                let n = ok.then(|| Node {
+                    pos: c.position,
+                    axes: Some(c.edges),
+                    rectify: Matrix2::identity(),
+                });
+                push(DetectionRef { kind: DetectionKind::CheckerCorner, index }, n, left_out);
+            }
+        }
+        PatternKind::DotGrid => {
+            for (index, d) in det.dots.iter().enumerate() {
+                let n = finite(&d.centre).then(|| Node {
+                    pos: d.centre,
+                    axes: None,
+                    rectify: rectifier(&d.ellipse),
+                });
+                push(DetectionRef { kind: DetectionKind::Dot, index }, n, left_out);
+            }
+        }
+        PatternKind::SquareGrid => {
+            for (index, s) in det.squares.iter().enumerate() {
+                let c = &s.corners;
+                let n = if c.iter().all(finite) {
+                    diagonal_centre(c).map(|pos| {
+                        let a1 = (c[1] - c[0]) + (c[2] - c[3]);
+                        let a2 = (c[3] - c[0]) + (c[2] - c[1]);
+                        Node { pos, axes: Some([a1, a2]), rectify: Matrix2::identity() }
+                    })
+                } else {
+                    None
+                };
+                push(DetectionRef { kind: DetectionKind::Square, index }, n, left_out);
+            }
+        }
+    }
+    KindNodes { nodes, refs }
+}
+
+/// Seen marks per component: each mark is mapped into the lattice of the (at most two)
+/// components owning its nearest nodes, and kept where it lands on a cell centre.
+fn seen_marks(
+    det: &Detections,
+    inks: &[Ink],
+    on_nodes: bool,
+    comps: &[Component],
+    owner: &BTreeMap<usize, (usize, Cell)>,
+    builder: &Builder<'_>,
+    nodes: &[Node],
+    tol: f64,
+) -> Vec<BTreeSet<SeenMark>> {
+    let mut out = vec![BTreeSet::new(); comps.len()];
+    for m in &det.marks {
+        if !finite(&m.centre) || !inks.contains(&m.ink) {
+            continue;
+        }
+        let mut tried = BTreeSet::new();
+        for (_, k) in builder.index().nearest(&m.centre, 6) {
+            let Some(&(ci, cell)) = owner.get(&k) else { continue };
+            if !tried.insert(ci) || tried.len() > 2 {
+                continue;
+            }
+            let Some(map) = local_map(&comps[ci].cells, nodes, cell, 2) else { continue };
+            // The local map leaves out `cell` itself; that only matters for its accuracy.
+            let Some(inv) = map.inverse() else { continue };
+            let Some(uv) = inv.apply(&m.centre) else { continue };
+            let seen = if on_nodes {
+                let (a, b) = (uv.x.round(), uv.y.round());
+                ((uv.x - a).abs() < tol && (uv.y - b).abs() < tol).then_some((a as i32, b as i32))
+            } else {
+                let (a, b) = (uv.x.floor(), uv.y.floor());
+                ((uv.x - a - 0.5).abs() < tol && (uv.y - b - 0.5).abs() < tol)
+                    .then_some((a as i32, b as i32))
+            };
+            if let Some(c) = seen {
+                let near_component = if on_nodes {
+                    comps[ci].cells.contains_key(&c)
+                } else {
+                    [(0, 0), (1, 0), (0, 1), (1, 1)]
+                        .iter()
+                        .any(|d| comps[ci].cells.contains_key(&(c.0 + d.0, c.1 + d.1)))
+                };
+                if near_component {
+                    out[ci].insert(SeenMark { cell: c, light: m.ink == Ink::Light });
+                }
+            }
+        }
+    }
+    out
+}
+
+/// Removes the nodes of `cells` that fail the leave-one-out residual test, worst first within
+/// each 5 x 5 neighbourhood; returns the removed cells.
+fn prune(cells: &mut BTreeMap<Cell, usize>, nodes: &[Node], tol: f64) -> Vec<(Cell, usize)> {
+    let mut removed = Vec::new();
+    for _ in 0..8 {
+        let res: BTreeMap<Cell, f64> =
+            cells.iter().map(|(&c, &k)| (c, loo_residual(cells, nodes, c, k))).collect();
+        let worst: Vec<Cell> = res
+            .iter()
+            .filter(|&(&c, &r)| {
+                r > tol
+                    && (-2..=2).all(|di| {
+                        (-2..=2).all(|dj| res.get(&(c.0 + di, c.1 + dj)).is_none_or(|&o| o <= r))
+                    })
+            })
+            .map(|(&c, _)| c)
+            .collect();
+        if worst.is_empty() {
+            break;
+        }
+        for c in worst {
+            if let Some(k) = cells.remove(&c) {
+                removed.push((c, k));
+            }
+        }
+    }
+    removed
+}
+
+/// Mean image vectors of a component's two lattice axes.
+fn mean_axes(cells: &BTreeMap<Cell, usize>, nodes: &[Node]) -> [Vector2<f64>; 2] {
+    let mut out = [Vector2::zeros(); 2];
+    for (a, d) in [(0, (1, 0)), (1, (0, 1))] {
+        let mut n = 0.0;
+        for (&(i, j), &k) in cells {
+            if let Some(&l) = cells.get(&(i + d.0, j + d.1)) {
+                out[a] += nodes[l].pos - nodes[k].pos;
+                n += 1.0;
+            }
+        }
+        if n > 0.0 {
+            out[a] /= n;
+        }
+    }
+    out
+}
+
+/// For a square node, the index of the detected corner that is face corner 0 (the detected
+/// corners are clockwise in the image, as the face corners are on a front-facing face).
+fn square_start(
+    det: &Detections,
+    index: usize,
+    cells: &BTreeMap<Cell, usize>,
+    nodes: &[Node],
+    cell: Cell,
+    turns: u8,
+) -> Option<usize> {
+    let sq = det.squares.get(index)?;
+    let k = *cells.get(&cell)?;
+    let centre = nodes[k].pos;
+    let (e1, e2) = match local_map(cells, nodes, cell, 2) {
+        Some(m) => {
+            let p = Point2::new(cell.0 as f64, cell.1 as f64);
+            let c = m.apply(&p)?;
+            (m.apply(&Point2::new(p.x + 1.0, p.y))? - c, m.apply(&Point2::new(p.x, p.y + 1.0))? - c)
+        }
+        None => {
+            let a = nodes[k].axes?;
+            (a[0], a[1])
+        }
+    };
+    let best = |q: usize| -> Option<usize> {
+        let dir = [(-1, -1), (1, -1), (1, 1), (-1, 1)][q];
+        let d = unrotate(turns, dir);
+        let v = e1 * d.0 as f64 + e2 * d.1 as f64;
+        (0..4).max_by(|&a, &b| {
+            let da = (sq.corners[a] - centre).dot(&v);
+            let db = (sq.corners[b] - centre).dot(&v);
+            da.total_cmp(&db)
+        })
+    };
+    let start = best(0)?;
+    (1..4).all(|q| best(q) == Some((start + q) % 4)).then_some(start)
+}
+
+/// Identifies the detections of one image against a target.
+///
+/// Errors only for invalid options or a target this matcher cannot identify (staggered dot
+/// grids); an image where nothing can be identified is a result with empty `faces` and the
+/// reasons in `rejected` and `left_out`.
+pub fn identify(
+    det: &Detections,
+    target: &Target,
+    opts: &MatchOptions,
+) -> Result<Identification, MatchError> {
+    opts.validate()?;
+    for f in target.faces() {
+        if let PatternSpec::DotGrid { layout: DotLayout::Staggered, .. } = f.pattern() {
+            return Err(MatchError::UnsupportedPattern {
+                face: f.id(),
+                reason: "staggered dot grids are not identified yet",
+            });
+        }
+    }
+    let mut result = Identification { marks_detected: det.marks.len(), ..Default::default() };
+    let kinds = target.pattern_kinds();
+    let lists = [
+        (PatternKind::Checkerboard, DetectionKind::CheckerCorner, det.checker_corners.len()),
+        (PatternKind::DotGrid, DetectionKind::Dot, det.dots.len()),
+        (PatternKind::SquareGrid, DetectionKind::Square, det.squares.len()),
+    ];
+    let single_codeless = target.faces().len() == 1 && target.faces()[0].marks().is_empty();
+    let mut by_face: BTreeMap<u32, FaceIdentification> = BTreeMap::new();
+    for (kind, dkind, n) in lists {
+        if !kinds.contains(&kind) {
+            for index in 0..n {
+                result.left_out.push(LeftOut {
+                    detection: DetectionRef { kind: dkind, index },
+                    reason: LeftOutReason::KindNotInTarget,
+                });
+            }
+            continue;
+        }
+        identify_kind(det, target, opts, kind, single_codeless, &mut result, &mut by_face);
+    }
+    result.faces = by_face.into_values().collect();
+    for f in &mut result.faces {
+        f.points.sort_by_key(|a| a.id);
+    }
+    result.left_out.sort_by_key(|a| a.detection);
+    Ok(result)
+}
+
+#[allow(clippy::too_many_arguments)]
+fn identify_kind(
+    det: &Detections,
+    target: &Target,
+    opts: &MatchOptions,
+    kind: PatternKind,
+    single_codeless: bool,
+    result: &mut Identification,
+    by_face: &mut BTreeMap<u32, FaceIdentification>,
+) {
+    let KindNodes { nodes, refs } = nodes_of(det, kind, &mut result.left_out);
+    let faces: Vec<(usize, &Face)> =
+        target.faces().iter().enumerate().filter(|(_, f)| f.pattern().kind() == kind).collect();
+    let mut builder = Builder::new(&nodes, opts);
+    let mut comps = builder.build();
+    // Largest first, then by smallest node index: a deterministic order.
+    comps.sort_by_key(|c| (std::cmp::Reverse(c.cells.len()), c.cells.values().min().copied()));
+    let mut owner: BTreeMap<usize, (usize, Cell)> = BTreeMap::new();
+    for (ci, c) in comps.iter().enumerate() {
+        for (&cell, &k) in &c.cells {
+            owner.insert(k, (ci, cell));
+        }
+    }
+    let inks: Vec<Ink> = match kind {
+        PatternKind::Checkerboard => vec![Ink::Dark, Ink::Light],
+        PatternKind::DotGrid => faces.iter().map(|(_, f)| f.ground().inverse()).collect(),
+        PatternKind::SquareGrid => vec![Ink::Light],
+    };
+    let on_nodes = kind == PatternKind::SquareGrid;
+    let marks =
+        seen_marks(det, &inks, on_nodes, &comps, &owner, &builder, &nodes, opts.mark_tolerance);
+    let mut starts: BTreeMap<usize, usize> = BTreeMap::new();
+    let mut claimed: BTreeMap<FeatureId, usize> = BTreeMap::new();
+    // Identified nodes per face grid cell (col, row), for the per-face residual test.
+    let mut face_cells: BTreeMap<usize, BTreeMap<Cell, usize>> = BTreeMap::new();
+    let mut turns_of: BTreeMap<usize, (u8, usize, usize)> = BTreeMap::new();
+    for (ci, comp) in comps.iter().enumerate() {
+        let cellset: BTreeSet<Cell> = comp.cells.keys().copied().collect();
+        let (w, h) = (det.width, det.height);
+        let in_image = |c: Cell| {
+            let centre = if on_nodes {
+                Point2::new(c.0 as f64, c.1 as f64)
+            } else {
+                Point2::new(c.0 as f64 + 0.5, c.1 as f64 + 0.5)
+            };
+            let near = if on_nodes { c } else { (c.0, c.1) };
+            let Some(m) = local_map(&comp.cells, &nodes, near, 2) else { return false };
+            let p = m.apply(&centre);
+            let s = p.and_then(|p| {
+                m.apply(&Point2::new(centre.x + 1.0, centre.y)).map(|q| (q - p).norm())
+            });
+            inside(p, w, h, 0.25 * s.unwrap_or(f64::INFINITY))
+        };
+        let view = CandidateView {
+            cells: &cellset,
+            marks: &marks[ci],
+            in_image: &in_image,
+            axes: mean_axes(&comp.cells, &nodes),
+        };
+        let placed: Result<Placement, Rejection> =
+            place(&faces, &view, single_codeless, opts.min_marks, opts.conflict_margin);
+        let reject = |r: Rejection, result: &mut Identification| {
+            for &k in comp.cells.values() {
+                result.left_out.push(LeftOut {
+                    detection: refs[k],
+                    reason: LeftOutReason::Candidate { rejection: r.clone() },
+                });
+            }
+            result.rejected.push(r);
+        };
+        let p = match placed {
+            Ok(p) => p,
+            Err(r) => {
+                reject(r, result);
+                continue;
+            }
+        };
+        let face = &target.faces()[p.face];
+        let ids: Vec<(Cell, usize, (i32, i32))> = comp
+            .cells
+            .iter()
+            .map(|(&c, &k)| {
+                let r = rotate(p.turns, c);
+                (c, k, (r.0 + p.offset.0, r.1 + p.offset.1))
+            })
+            .collect();
+        let overlap = ids.iter().any(|&(_, _, (col, row))| {
+            claimed.contains_key(&FeatureId {
+                face: face.id(),
+                row: row as u32,
+                col: col as u32,
+                corner: 0,
+            })
+        });
+        if overlap {
+            reject(Rejection::Overlap { nodes: comp.cells.len(), face: face.id() }, result);
+            continue;
+        }
+        let fc = face_cells.entry(p.face).or_default();
+        for &(_, k, (col, row)) in &ids {
+            claimed.insert(
+                FeatureId { face: face.id(), row: row as u32, col: col as u32, corner: 0 },
+                k,
+            );
+            fc.insert((col, row), k);
+        }
+        let t = turns_of.entry(p.face).or_insert((p.turns, 0, 0));
+        t.1 += p.matched;
+        t.2 += 1;
+        // Square corners: remember each node's start corner now, while its candidate's lattice
+        // is at hand.
+        if on_nodes {
+            for &(c, k, _) in &ids {
+                match square_start(det, refs[k].index, &comp.cells, &nodes, c, p.turns) {
+                    Some(s) => {
+                        starts.insert(k, s);
+                    }
+                    None => {
+                        fc.retain(|_, &mut v| v != k);
+                        result.left_out.push(LeftOut {
+                            detection: refs[k],
+                            reason: LeftOutReason::CornerOrder,
+                        });
+                    }
+                }
+            }
+        }
+    }
+    // Per-face test of every final identity, then the output.
+    for (fi, mut cells) in face_cells {
+        let face = &target.faces()[fi];
+        for (_, k) in prune(&mut cells, &nodes, opts.residual) {
+            result
+                .left_out
+                .push(LeftOut { detection: refs[k], reason: LeftOutReason::FitResidual });
+        }
+        let src: Vec<Point2<f64>> =
+            cells.keys().map(|c| Point2::new(c.0 as f64, c.1 as f64)).collect();
+        let dst: Vec<Point2<f64>> = cells.values().map(|&k| nodes[k].pos).collect();
+        let (turns, matched, count) = turns_of.get(&fi).copied().unwrap_or((0, 0, 0));
+        if let Some(h) = fit_homography(&src, &dst) {
+            let n = src.len() as f64;
+            let mid = Point2::new(
+                src.iter().map(|p| p.x).sum::<f64>() / n,
+                src.iter().map(|p| p.y).sum::<f64>() / n,
+            );
+            if h.orientation_at(&mid) <= 0.0 {
+                let r = Rejection::Mirrored { nodes: cells.len(), face: face.id() };
+                for &k in cells.values() {
+                    result.left_out.push(LeftOut {
+                        detection: refs[k],
+                        reason: LeftOutReason::Candidate { rejection: r.clone() },
+                    });
+                }
+                result.rejected.push(r);
+                continue;
+            }
+        }
+        let entry = by_face.entry(face.id()).or_insert_with(|| FaceIdentification {
+            face: face.id(),
+            quarter_turns: turns,
+            marks_matched: matched,
+            candidates: count,
+            points: Vec::new(),
+        });
+        for (&(col, row), &k) in &cells {
+            let residual = loo_residual(&cells, &nodes, (col, row), k);
+            let residual = residual.is_finite().then_some(residual);
+            let (row, col) = (row as u32, col as u32);
+            let corners: Vec<(u8, Point2<f64>)> = if on_nodes {
+                let Some(&s) = starts.get(&k) else { continue };
+                let Some(sq) = det.squares.get(refs[k].index) else { continue };
+                (0..4u8).map(|q| (q, sq.corners[(s + q as usize) % 4])).collect()
+            } else {
+                vec![(0, nodes[k].pos)]
+            };
+            for (corner, px) in corners {
+                let Some(local) = face.feature_local(row, col, corner) else { continue };
+                let t = face.to_target(&local);
+                entry.points.push(Correspondence {
+                    id: FeatureId { face: face.id(), row, col, corner },
+                    target: [t.x, t.y, t.z],
+                    image: [px.x, px.y],
+                    residual,
+                    detection: refs[k],
+                });
+            }
+        }
+    }
+    for (k, &r) in refs.iter().enumerate() {
+        if !owner.contains_key(&k) {
+            result.left_out.push(LeftOut { detection: r, reason: LeftOutReason::NoLattice });
+        }
+    }
+}

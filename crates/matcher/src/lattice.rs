@@ -1,0 +1,359 @@
+//! The lattice topology of one pattern kind's detections: seeds, outward growth with local fits,
+//! and the leave-one-out residual test that removes nodes which do not belong.
+//!
+//! A node is one lattice point: a checker corner, a dot, or the centre of a square. A face
+//! candidate is a map from integer lattice coordinates `(i, j)` to nodes, grown from a seed
+//! whose two axes come from the detections themselves (the edge directions of a checker corner,
+//! the sides of a square, or for dots the neighbour vectors after undoing the dot's ellipse,
+//! which a circle's image fixes up to a rotation). Lattice coordinates are always right-handed
+//! in the image (`e1 x e2 > 0` with y down), so that only proper rotations can map them onto a
+//! front-facing face.
+//!
+//! Growth predicts each next node from a local fit of the nodes within two lattice steps
+//! (a homography where the neighbourhood spans three rows and three columns, an affine map
+//! otherwise), accepts the nearest detection inside a gate proportional to the local spacing,
+//! and repeats outward, so that strong lens distortion, which is smooth but far from
+//! projective over a whole face, does not stop it.
+
+use std::collections::{BTreeMap, BTreeSet};
+use std::num::NonZero;
+
+use kiddo::{ImmutableKdTree, SquaredEuclidean};
+use nalgebra::{Matrix2, Point2, Vector2};
+
+use crate::MatchOptions;
+use crate::fit::{PlaneMap, fit_affine, fit_homography};
+
+/// Integer lattice coordinates of a face candidate.
+pub(crate) type Cell = (i32, i32);
+
+/// One lattice point.
+#[derive(Clone, Debug)]
+pub(crate) struct Node {
+    /// Image position.
+    pub pos: Point2<f64>,
+    /// Two lattice directions known from the detection itself (checker edges, square sides).
+    pub axes: Option<[Vector2<f64>; 2]>,
+    /// A map that undoes the local affine distortion (from a dot's ellipse), or identity.
+    pub rectify: Matrix2<f64>,
+}
+
+/// A grown face candidate.
+#[derive(Clone, Debug, Default)]
+pub(crate) struct Component {
+    /// Node index of each lattice cell.
+    pub cells: BTreeMap<Cell, usize>,
+}
+
+/// The k-d tree over node positions, with ties broken by index so results never depend on the
+/// tree's internal order.
+pub(crate) struct NodeIndex {
+    tree: Option<ImmutableKdTree<f64, 2>>,
+    len: usize,
+}
+
+impl NodeIndex {
+    pub fn new(pos: &[Point2<f64>]) -> NodeIndex {
+        let pts: Vec<[f64; 2]> = pos.iter().map(|p| [p.x, p.y]).collect();
+        let tree = (!pts.is_empty()).then(|| ImmutableKdTree::new_from_slice(&pts));
+        NodeIndex { tree, len: pts.len() }
+    }
+
+    /// Up to `n` nearest nodes as `(distance, index)`, nearest first.
+    pub fn nearest(&self, p: &Point2<f64>, n: usize) -> Vec<(f64, usize)> {
+        let (Some(tree), Some(k)) = (&self.tree, NonZero::new(n.min(self.len))) else {
+            return Vec::new();
+        };
+        let mut out: Vec<(f64, usize)> = tree
+            .nearest_n::<SquaredEuclidean>(&[p.x, p.y], k)
+            .into_iter()
+            .map(|nn| (nn.distance.sqrt(), nn.item as usize))
+            .collect();
+        out.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        out
+    }
+}
+
+/// Fits the local map lattice -> image from the cells of `cells` within Chebyshev distance
+/// `radius` of `at`, leaving out `at` itself.
+pub(crate) fn local_map(
+    cells: &BTreeMap<Cell, usize>,
+    nodes: &[Node],
+    at: Cell,
+    radius: i32,
+) -> Option<PlaneMap> {
+    let mut src = Vec::with_capacity(24);
+    let mut dst = Vec::with_capacity(24);
+    let (mut is, mut js) = (BTreeSet::new(), BTreeSet::new());
+    for di in -radius..=radius {
+        for dj in -radius..=radius {
+            if di == 0 && dj == 0 {
+                continue;
+            }
+            let c = (at.0 + di, at.1 + dj);
+            if let Some(&k) = cells.get(&c) {
+                src.push(Point2::new(c.0 as f64, c.1 as f64));
+                dst.push(nodes[k].pos);
+                is.insert(c.0);
+                js.insert(c.1);
+            }
+        }
+    }
+    if src.len() >= 7 && is.len() >= 3 && js.len() >= 3 {
+        if let Some(h) = fit_homography(&src, &dst) {
+            return Some(h);
+        }
+    }
+    fit_affine(&src, &dst)
+}
+
+/// A prediction of cell `at`: an image point and the local spacing there (the shorter of the
+/// two lattice steps).
+fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<(Point2<f64>, f64)> {
+    let map = local_map(cells, nodes, at, 2).or_else(|| local_map(cells, nodes, at, 3));
+    if let Some(m) = map {
+        let p = Point2::new(at.0 as f64, at.1 as f64);
+        let c = m.apply(&p)?;
+        let a = m.apply(&Point2::new(p.x + 1.0, p.y))?;
+        let b = m.apply(&Point2::new(p.x, p.y + 1.0))?;
+        let s = (a - c).norm().min((b - c).norm());
+        return (s.is_finite() && s > 0.0).then_some((c, s));
+    }
+    // A single line of nodes: extrapolate along it.
+    for d in [(1, 0), (-1, 0), (0, 1), (0, -1)] {
+        let p1 = cells.get(&(at.0 - d.0, at.1 - d.1));
+        let p2 = cells.get(&(at.0 - 2 * d.0, at.1 - 2 * d.1));
+        if let (Some(&a), Some(&b)) = (p1, p2) {
+            let step = nodes[a].pos - nodes[b].pos;
+            return Some((nodes[a].pos + step, step.norm()));
+        }
+    }
+    None
+}
+
+/// Number of cells of `cells` among the 8 neighbours of `at`.
+fn support(cells: &BTreeMap<Cell, usize>, at: Cell) -> usize {
+    let mut n = 0;
+    for di in -1..=1 {
+        for dj in -1..=1 {
+            if (di, dj) != (0, 0) && cells.contains_key(&(at.0 + di, at.1 + dj)) {
+                n += 1;
+            }
+        }
+    }
+    n
+}
+
+fn cross(a: &Vector2<f64>, b: &Vector2<f64>) -> f64 {
+    a.x * b.y - a.y * b.x
+}
+
+/// Builds the face candidates of one pattern kind.
+pub(crate) struct Builder<'a> {
+    nodes: &'a [Node],
+    index: NodeIndex,
+    owner: Vec<Option<usize>>,
+    opts: &'a MatchOptions,
+}
+
+impl<'a> Builder<'a> {
+    pub fn new(nodes: &'a [Node], opts: &'a MatchOptions) -> Builder<'a> {
+        let pos: Vec<Point2<f64>> = nodes.iter().map(|n| n.pos).collect();
+        Builder { nodes, index: NodeIndex::new(&pos), owner: vec![None; nodes.len()], opts }
+    }
+
+    /// The nodes' k-d tree.
+    pub fn index(&self) -> &NodeIndex {
+        &self.index
+    }
+
+    /// The two neighbours of node `s` along its lattice axes and a regularity score (how many of
+    /// the two axes also have a neighbour on the opposite side).
+    fn seed_axes(&self, s: usize) -> Option<(usize, usize, usize)> {
+        let node = &self.nodes[s];
+        let near: Vec<(usize, Vector2<f64>)> = self
+            .index
+            .nearest(&node.pos, 9)
+            .into_iter()
+            .filter(|&(d, k)| k != s && d > 0.0)
+            .map(|(_, k)| (k, self.nodes[k].pos - node.pos))
+            .collect();
+        let pick = |dir: &Vector2<f64>, min_cos: f64, exclude: Option<usize>| {
+            near.iter()
+                .filter(|(k, v)| {
+                    Some(*k) != exclude && (v.dot(dir) / (v.norm() * dir.norm())).abs() > min_cos
+                })
+                .map(|&(k, v)| (k, v))
+                .next()
+        };
+        let (a, b) = match node.axes {
+            Some([h1, h2]) => {
+                let cos20 = 20f64.to_radians().cos();
+                let a = pick(&h1, cos20, None)?;
+                let b = pick(&h2, cos20, Some(a.0))?;
+                (a, b)
+            }
+            None => {
+                let w = node.rectify;
+                let r1 = near.first().copied()?;
+                let w1 = w * r1.1;
+                let b = near[1..].iter().copied().find(|(_, v)| {
+                    let wv = w * v;
+                    let ratio = wv.norm() / w1.norm();
+                    (wv.dot(&w1) / (wv.norm() * w1.norm())).abs() < 0.35
+                        && (0.7..1.45).contains(&ratio)
+                })?;
+                (r1, b)
+            }
+        };
+        let ratio = a.1.norm() / b.1.norm();
+        if !(0.25..4.0).contains(&ratio) {
+            return None;
+        }
+        let opposite =
+            |v: &Vector2<f64>| near.iter().any(|(_, u)| (u + v).norm() < 0.25 * v.norm());
+        let score = opposite(&a.1) as usize + opposite(&b.1) as usize;
+        Some((a.0, b.0, score))
+    }
+
+    /// Grows every face candidate: seeds in order of regularity (then index), each grown as far
+    /// as it goes; candidates smaller than `min_nodes` give their nodes back.
+    pub fn build(&mut self) -> Vec<Component> {
+        let mut seeds: Vec<(usize, usize, usize, usize)> = (0..self.nodes.len())
+            .filter_map(|s| self.seed_axes(s).map(|(a, b, score)| (s, a, b, score)))
+            .collect();
+        seeds.sort_by(|x, y| y.3.cmp(&x.3).then(x.0.cmp(&y.0)));
+        let mut out: Vec<Component> = Vec::new();
+        for (s, a, b, _) in seeds {
+            if self.owner[s].is_some() || self.owner[a].is_some() || self.owner[b].is_some() {
+                continue;
+            }
+            let id = out.len();
+            let (va, vb) =
+                (self.nodes[a].pos - self.nodes[s].pos, self.nodes[b].pos - self.nodes[s].pos);
+            let (ea, eb) = if cross(&va, &vb) > 0.0 { (a, b) } else { (b, a) };
+            let mut comp = Component::default();
+            for (c, k) in [((0, 0), s), ((1, 0), ea), ((0, 1), eb)] {
+                comp.cells.insert(c, k);
+                self.owner[k] = Some(id);
+            }
+            self.grow(id, &mut comp);
+            self.verify(&mut comp);
+            if comp.cells.len() < self.opts.min_nodes {
+                for &k in comp.cells.values() {
+                    self.owner[k] = None;
+                }
+                continue;
+            }
+            out.push(comp);
+        }
+        out
+    }
+
+    fn grow(&mut self, id: usize, comp: &mut Component) {
+        let mut failed: BTreeMap<Cell, usize> = BTreeMap::new();
+        loop {
+            let mut frontier: BTreeSet<Cell> = BTreeSet::new();
+            for &(i, j) in comp.cells.keys() {
+                for d in [(1, 0), (-1, 0), (0, 1), (0, -1)] {
+                    let q = (i + d.0, j + d.1);
+                    if !comp.cells.contains_key(&q) {
+                        frontier.insert(q);
+                    }
+                }
+            }
+            let mut todo: Vec<(usize, Cell)> = frontier
+                .into_iter()
+                .map(|q| (support(&comp.cells, q), q))
+                .filter(|&(sup, q)| failed.get(&q).is_none_or(|&f| sup > f))
+                .collect();
+            if todo.is_empty() {
+                break;
+            }
+            todo.sort_by(|x, y| y.0.cmp(&x.0).then(x.1.cmp(&y.1)));
+            let mut grew = false;
+            for (_, q) in todo {
+                let sup = support(&comp.cells, q);
+                match self.accept(&comp.cells, q) {
+                    Some(k) => {
+                        comp.cells.insert(q, k);
+                        self.owner[k] = Some(id);
+                        failed.remove(&q);
+                        grew = true;
+                    }
+                    None => {
+                        failed.insert(q, sup);
+                    }
+                }
+            }
+            if !grew {
+                break;
+            }
+        }
+    }
+
+    /// The free detection nearest to the prediction of `q`, if it lies inside the gate.
+    fn accept(&self, cells: &BTreeMap<Cell, usize>, q: Cell) -> Option<usize> {
+        let (p, spacing) = predict(cells, self.nodes, q)?;
+        let gate = self.opts.gate * spacing;
+        let near = self.index.nearest(&p, 2);
+        let &(d, k) = near.first()?;
+        if d > gate || self.owner[k].is_some() {
+            return None;
+        }
+        // Two detections inside the gate at similar distances: do not guess.
+        if let Some(&(d2, _)) = near.get(1) {
+            if d2 <= gate && d2 < 2.0 * d {
+                return None;
+            }
+        }
+        Some(k)
+    }
+
+    /// Leave-one-out residual test: a node whose position disagrees with the fit of its
+    /// neighbours by more than `residual` x the local spacing is removed, worst first within
+    /// each neighbourhood, until every node passes.
+    fn verify(&mut self, comp: &mut Component) {
+        for _ in 0..8 {
+            let res: BTreeMap<Cell, f64> = comp
+                .cells
+                .iter()
+                .map(|(&c, &k)| (c, loo_residual(&comp.cells, self.nodes, c, k)))
+                .collect();
+            let tol = self.opts.residual;
+            let worst: Vec<Cell> = res
+                .iter()
+                .filter(|&(&c, &r)| {
+                    r > tol
+                        && (-2..=2).all(|di| {
+                            (-2..=2)
+                                .all(|dj| res.get(&(c.0 + di, c.1 + dj)).is_none_or(|&o| o <= r))
+                        })
+                })
+                .map(|(&c, _)| c)
+                .collect();
+            if worst.is_empty() {
+                return;
+            }
+            for c in worst {
+                if let Some(k) = comp.cells.remove(&c) {
+                    self.owner[k] = None;
+                }
+            }
+        }
+    }
+}
+
+/// The residual of node `k` at `c` against the fit of its neighbours, in units of the local
+/// spacing; `f64::INFINITY` when the neighbours cannot predict it.
+pub(crate) fn loo_residual(
+    cells: &BTreeMap<Cell, usize>,
+    nodes: &[Node],
+    c: Cell,
+    k: usize,
+) -> f64 {
+    match predict(cells, nodes, c) {
+        Some((p, s)) => (p - nodes[k].pos).norm() / s,
+        None => f64::INFINITY,
+    }
+}
