@@ -5,9 +5,11 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod demo;
 mod exit;
 mod output;
 mod target;
+mod undistort;
 
 /// Automatic target detection and camera calibration.
 #[derive(Parser, Debug)]
@@ -19,13 +21,19 @@ struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Run the built-in demonstration: render an end-of-line station's shots and calibrate them.
+    Demo(demo::DemoArgs),
     /// Check a target file or write its printable sheets.
     Target(target::TargetArgs),
+    /// Remove the lens distortion from images with a calibration.
+    Undistort(undistort::UndistortArgs),
 }
 
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
+        Command::Demo(a) => demo::run(a),
         Command::Target(a) => target::run(a),
+        Command::Undistort(a) => undistort::run(a),
     }
 }
 
