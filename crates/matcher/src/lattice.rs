@@ -36,6 +36,8 @@ pub(crate) struct Node {
     pub axes: Option<[Vector2<f64>; 2]>,
     /// A map that undoes the local affine distortion (from a dot's ellipse), or identity.
     pub rectify: Matrix2<f64>,
+    /// Two sizes that vary slowly across a face: a dot's semi-axes, a square's mean sides.
+    pub size: Option<[f64; 2]>,
 }
 
 /// A grown face candidate.
@@ -107,17 +109,27 @@ pub(crate) fn local_map(
     fit_affine(&src, &dst)
 }
 
-/// A prediction of cell `at`: an image point and the local spacing there (the shorter of the
-/// two lattice steps).
-fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<(Point2<f64>, f64)> {
+/// A prediction of cell `at`: the image point, the images of the two lattice steps there
+/// (`None` when only a line of nodes predicts it), and the local spacing (the shorter step).
+struct Prediction {
+    point: Point2<f64>,
+    steps: Option<[Vector2<f64>; 2]>,
+    spacing: f64,
+}
+
+fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<Prediction> {
     let map = local_map(cells, nodes, at, 2).or_else(|| local_map(cells, nodes, at, 3));
     if let Some(m) = map {
         let p = Point2::new(at.0 as f64, at.1 as f64);
         let c = m.apply(&p)?;
-        let a = m.apply(&Point2::new(p.x + 1.0, p.y))?;
-        let b = m.apply(&Point2::new(p.x, p.y + 1.0))?;
-        let s = (a - c).norm().min((b - c).norm());
-        return (s.is_finite() && s > 0.0).then_some((c, s));
+        let a = m.apply(&Point2::new(p.x + 1.0, p.y))? - c;
+        let b = m.apply(&Point2::new(p.x, p.y + 1.0))? - c;
+        let spacing = a.norm().min(b.norm());
+        return (spacing.is_finite() && spacing > 0.0).then_some(Prediction {
+            point: c,
+            steps: Some([a, b]),
+            spacing,
+        });
     }
     // A single line of nodes: extrapolate along it.
     for d in [(1, 0), (-1, 0), (0, 1), (0, -1)] {
@@ -125,10 +137,56 @@ fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<(P
         let p2 = cells.get(&(at.0 - 2 * d.0, at.1 - 2 * d.1));
         if let (Some(&a), Some(&b)) = (p1, p2) {
             let step = nodes[a].pos - nodes[b].pos;
-            return Some((nodes[a].pos + step, step.norm()));
+            return Some(Prediction {
+                point: nodes[a].pos + step,
+                steps: None,
+                spacing: step.norm(),
+            });
         }
     }
     None
+}
+
+/// Whether a detection's own shape agrees with the lattice where it would sit: its edge or side
+/// directions within 15 degrees of the local lattice steps, its sizes within a factor 1.5 of
+/// its neighbours'. Clutter that happens to fall inside the gate rarely passes both.
+fn agrees(
+    cells: &BTreeMap<Cell, usize>,
+    nodes: &[Node],
+    at: Cell,
+    k: usize,
+    pred: &Prediction,
+) -> bool {
+    let n = &nodes[k];
+    if let (Some([h1, h2]), Some([e1, e2])) = (n.axes, pred.steps) {
+        let c = 15f64.to_radians().cos();
+        let along =
+            |e: &Vector2<f64>, h: &Vector2<f64>| (e.dot(h) / (e.norm() * h.norm())).abs() > c;
+        if !((along(&e1, &h1) && along(&e2, &h2)) || (along(&e1, &h2) && along(&e2, &h1))) {
+            return false;
+        }
+    }
+    if let Some(sz) = n.size {
+        let (mut sum, mut count) = ([0.0, 0.0], 0.0);
+        for di in -1..=1 {
+            for dj in -1..=1 {
+                if let Some(s) = cells.get(&(at.0 + di, at.1 + dj)).and_then(|&o| nodes[o].size) {
+                    sum[0] += s[0];
+                    sum[1] += s[1];
+                    count += 1.0;
+                }
+            }
+        }
+        if count > 0.0 {
+            for a in 0..2 {
+                let r = sz[a] * count / sum[a];
+                if !(r > 1.0 / 1.5 && r < 1.5) {
+                    return false;
+                }
+            }
+        }
+    }
+    true
 }
 
 /// Number of cells of `cells` among the 8 neighbours of `at`.
@@ -294,9 +352,9 @@ impl<'a> Builder<'a> {
 
     /// The free detection nearest to the prediction of `q`, if it lies inside the gate.
     fn accept(&self, cells: &BTreeMap<Cell, usize>, q: Cell) -> Option<usize> {
-        let (p, spacing) = predict(cells, self.nodes, q)?;
-        let gate = self.opts.gate * spacing;
-        let near = self.index.nearest(&p, 2);
+        let pred = predict(cells, self.nodes, q)?;
+        let gate = self.opts.gate * pred.spacing;
+        let near = self.index.nearest(&pred.point, 2);
         let &(d, k) = near.first()?;
         if d > gate || self.owner[k].is_some() {
             return None;
@@ -307,7 +365,7 @@ impl<'a> Builder<'a> {
                 return None;
             }
         }
-        Some(k)
+        agrees(cells, self.nodes, q, k, &pred).then_some(k)
     }
 
     /// Leave-one-out residual test: a node whose position disagrees with the fit of its
@@ -353,7 +411,7 @@ pub(crate) fn loo_residual(
     k: usize,
 ) -> f64 {
     match predict(cells, nodes, c) {
-        Some((p, s)) => (p - nodes[k].pos).norm() / s,
+        Some(p) => (p.point - nodes[k].pos).norm() / p.spacing,
         None => f64::INFINITY,
     }
 }

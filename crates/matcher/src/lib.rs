@@ -65,10 +65,14 @@ pub struct MatchOptions {
     pub min_nodes: usize,
     /// Seen marks the accepted placement must explain. Default 1.
     pub min_marks: usize,
-    /// Conflicts every other placement must have. Default 2 (one mark error cannot mislabel).
+    /// Conflicts the accepted placement may have (a spurious or missed mark, a stray node).
+    /// Default 1.
+    pub tolerated_conflicts: usize,
+    /// How many more conflicts than the accepted placement every other placement must have.
+    /// Default 2, so that one detection error cannot produce a wrong identity.
     pub conflict_margin: usize,
     /// A mark belongs to a cell when it lies within this many lattice units of the cell centre
-    /// along each axis. Default 0.25.
+    /// along each axis. Default 0.2.
     pub mark_tolerance: f64,
 }
 
@@ -79,8 +83,9 @@ impl Default for MatchOptions {
             residual: 0.15,
             min_nodes: 9,
             min_marks: 1,
+            tolerated_conflicts: 1,
             conflict_margin: 2,
-            mark_tolerance: 0.25,
+            mark_tolerance: 0.2,
         }
     }
 }
@@ -167,6 +172,7 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                     pos: c.position,
                     axes: Some(c.edges),
                     rectify: Matrix2::identity(),
+                    size: None,
                 });
                 push(DetectionRef { kind: DetectionKind::CheckerCorner, index }, n, left_out);
             }
@@ -177,6 +183,8 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                     pos: d.centre,
                     axes: None,
                     rectify: rectifier(&d.ellipse),
+                    size: Some([d.ellipse.semi_major, d.ellipse.semi_minor])
+                        .filter(|s| s.iter().all(|v| v.is_finite() && *v > 0.0)),
                 });
                 push(DetectionRef { kind: DetectionKind::Dot, index }, n, left_out);
             }
@@ -188,7 +196,12 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                     diagonal_centre(c).map(|pos| {
                         let a1 = (c[1] - c[0]) + (c[2] - c[3]);
                         let a2 = (c[3] - c[0]) + (c[2] - c[1]);
-                        Node { pos, axes: Some([a1, a2]), rectify: Matrix2::identity() }
+                        Node {
+                            pos,
+                            axes: Some([a1, a2]),
+                            rectify: Matrix2::identity(),
+                            size: Some([0.5 * a1.norm(), 0.5 * a2.norm()]),
+                        }
                     })
                 } else {
                     None
@@ -300,7 +313,11 @@ fn mean_axes(cells: &BTreeMap<Cell, usize>, nodes: &[Node]) -> [Vector2<f64>; 2]
 }
 
 /// For a square node, the index of the detected corner that is face corner 0 (the detected
-/// corners are clockwise in the image, as the face corners are on a front-facing face).
+/// corners are clockwise in the image, as the face corners are on a front-facing face). The
+/// node's lattice neighbours predict the corners, and each detected corner must lie within `tol`
+/// lattice spacings of its predicted place (`half` is half the side in lattice units), which
+/// refuses a square of the wrong size or angle sitting where a missing square would be.
+#[allow(clippy::too_many_arguments)]
 fn square_start(
     det: &Detections,
     index: usize,
@@ -308,33 +325,31 @@ fn square_start(
     nodes: &[Node],
     cell: Cell,
     turns: u8,
+    half: f64,
+    tol: f64,
 ) -> Option<usize> {
     let sq = det.squares.get(index)?;
-    let k = *cells.get(&cell)?;
-    let centre = nodes[k].pos;
-    let (e1, e2) = match local_map(cells, nodes, cell, 2) {
-        Some(m) => {
-            let p = Point2::new(cell.0 as f64, cell.1 as f64);
-            let c = m.apply(&p)?;
-            (m.apply(&Point2::new(p.x + 1.0, p.y))? - c, m.apply(&Point2::new(p.x, p.y + 1.0))? - c)
-        }
-        None => {
-            let a = nodes[k].axes?;
-            (a[0], a[1])
-        }
-    };
-    let best = |q: usize| -> Option<usize> {
-        let dir = [(-1, -1), (1, -1), (1, 1), (-1, 1)][q];
-        let d = unrotate(turns, dir);
-        let v = e1 * d.0 as f64 + e2 * d.1 as f64;
-        (0..4).max_by(|&a, &b| {
-            let da = (sq.corners[a] - centre).dot(&v);
-            let db = (sq.corners[b] - centre).dot(&v);
-            da.total_cmp(&db)
-        })
-    };
-    let start = best(0)?;
-    (1..4).all(|q| best(q) == Some((start + q) % 4)).then_some(start)
+    cells.get(&cell)?;
+    let dirs = [(-1, -1), (1, -1), (1, 1), (-1, 1)].map(|d| unrotate(turns, d));
+    if let Some(m) = local_map(cells, nodes, cell, 2) {
+        let p = Point2::new(cell.0 as f64, cell.1 as f64);
+        let c = m.apply(&p)?;
+        let spacing = (m.apply(&Point2::new(p.x + 1.0, p.y))? - c)
+            .norm()
+            .min((m.apply(&Point2::new(p.x, p.y + 1.0))? - c).norm());
+        let predicted: Vec<Point2<f64>> = dirs
+            .iter()
+            .map(|d| m.apply(&Point2::new(p.x + half * d.0 as f64, p.y + half * d.1 as f64)))
+            .collect::<Option<Vec<_>>>()?;
+        let start = (0..4).min_by(|&a, &b| {
+            (sq.corners[a] - predicted[0]).norm().total_cmp(&(sq.corners[b] - predicted[0]).norm())
+        })?;
+        let ok =
+            (0..4).all(|q| (sq.corners[(start + q) % 4] - predicted[q]).norm() <= tol * spacing);
+        return ok.then_some(start);
+    }
+    // Without neighbours to predict the corners the order is a guess: leave it out.
+    None
 }
 
 /// Identifies the detections of one image against a target.
@@ -417,6 +432,11 @@ fn identify_kind(
     let marks =
         seen_marks(det, &inks, on_nodes, &comps, &owner, &builder, &nodes, opts.mark_tolerance);
     let mut starts: BTreeMap<usize, usize> = BTreeMap::new();
+    let rule = place::Rule {
+        min_marks: opts.min_marks,
+        tolerated: opts.tolerated_conflicts,
+        margin: opts.conflict_margin,
+    };
     let mut claimed: BTreeMap<FeatureId, usize> = BTreeMap::new();
     // Identified nodes per face grid cell (col, row), for the per-face residual test.
     let mut face_cells: BTreeMap<usize, BTreeMap<Cell, usize>> = BTreeMap::new();
@@ -444,8 +464,7 @@ fn identify_kind(
             in_image: &in_image,
             axes: mean_axes(&comp.cells, &nodes),
         };
-        let placed: Result<Placement, Rejection> =
-            place(&faces, &view, single_codeless, opts.min_marks, opts.conflict_margin);
+        let placed: Result<Placement, Rejection> = place(&faces, &view, single_codeless, &rule);
         let reject = |r: Rejection, result: &mut Identification| {
             for &k in comp.cells.values() {
                 result.left_out.push(LeftOut {
@@ -463,14 +482,20 @@ fn identify_kind(
             }
         };
         let face = &target.faces()[p.face];
-        let ids: Vec<(Cell, usize, (i32, i32))> = comp
-            .cells
-            .iter()
-            .map(|(&c, &k)| {
-                let r = rotate(p.turns, c);
-                (c, k, (r.0 + p.offset.0, r.1 + p.offset.1))
-            })
-            .collect();
+        let (rows, cols) = face.feature_grid();
+        let mut ids: Vec<(Cell, usize, (i32, i32))> = Vec::with_capacity(comp.cells.len());
+        for (&c, &k) in &comp.cells {
+            let r = rotate(p.turns, c);
+            let (col, row) = (r.0 + p.offset.0, r.1 + p.offset.1);
+            if col < 0 || row < 0 || col >= cols as i32 || row >= rows as i32 {
+                // A tolerated conflict: a stray node beyond the face.
+                result
+                    .left_out
+                    .push(LeftOut { detection: refs[k], reason: LeftOutReason::OutsideFace });
+            } else {
+                ids.push((c, k, (col, row)));
+            }
+        }
         let overlap = ids.iter().any(|&(_, _, (col, row))| {
             claimed.contains_key(&FeatureId {
                 face: face.id(),
@@ -498,7 +523,20 @@ fn identify_kind(
         // is at hand.
         if on_nodes {
             for &(c, k, _) in &ids {
-                match square_start(det, refs[k].index, &comp.cells, &nodes, c, p.turns) {
+                let half = match face.pattern() {
+                    PatternSpec::SquareGrid { side, pitch, .. } => 0.5 * side / pitch,
+                    _ => 0.5,
+                };
+                match square_start(
+                    det,
+                    refs[k].index,
+                    &comp.cells,
+                    &nodes,
+                    c,
+                    p.turns,
+                    half,
+                    opts.residual,
+                ) {
                     Some(s) => {
                         starts.insert(k, s);
                     }

@@ -179,6 +179,9 @@ pub enum LeftOutReason {
     NoLattice,
     /// Its position disagrees with the fit of its lattice neighbours.
     FitResidual,
+    /// Its candidate was placed, but it falls beyond the face (a stray node, counted as one of
+    /// the tolerated conflicts).
+    OutsideFace,
     /// A square whose corners could not be matched to the face's corner order.
     CornerOrder,
     /// Its face candidate was refused.
@@ -196,6 +199,7 @@ impl LeftOutReason {
             LeftOutReason::KindNotInTarget => "kind-not-in-target",
             LeftOutReason::NoLattice => "no-lattice",
             LeftOutReason::FitResidual => "fit-residual",
+            LeftOutReason::OutsideFace => "outside-face",
             LeftOutReason::CornerOrder => "corner-order",
             LeftOutReason::Candidate { rejection } => rejection.name(),
         }

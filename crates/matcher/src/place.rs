@@ -7,21 +7,21 @@
 //! are never enumerated: candidate lattices are right-handed in the image, and a front-facing
 //! printed face keeps its handedness, so a mirrored placement is physically impossible.
 //!
-//! Every placement that puts all candidate nodes inside the face grid is scored by its
-//! conflicts with the observed marks:
+//! Every placement is scored by its conflicts with what was seen:
+//! - a candidate node that the placement sends outside the face grid;
 //! - a mark seen at a candidate cell that the placement sends outside the face's mark grid, to
 //!   an unmarked cell, or (checkerboards) to a cell whose colour contradicts the mark's ink;
 //! - a face mark whose cell the placement sends to a *visible* candidate cell where no mark was
 //!   seen. A cell is visible when every one of its bounding features that exists on the face
 //!   (at least two) is a node of the candidate and its centre lies inside the image.
 //!
-//! **Decision rule.** Accept placement `P` if and only if `P` has zero conflicts, `P` explains
-//! at least `min_marks` seen marks, and every other placement, on any face of the same pattern
-//! kind, has at least `conflict_margin` conflicts (default 2). If the detector misses or invents
-//! at most `e` marks of a candidate, the true placement has at most `e` conflicts and any
-//! other accepted placement would need the true one to have at least `conflict_margin`: so with
-//! the default margin a single mark error can cost an identification but never produce a wrong
-//! one. A target of one face without a code is the exception: a candidate that covers the
+//! **Decision rule.** Let `P` be the placement with the fewest conflicts `c`, over every face of
+//! the candidate's pattern kind. Accept `P` if and only if `c <= tolerated_conflicts` (default
+//! 1), no other placement has `c` conflicts, `P` explains at least `min_marks` seen marks
+//! (default 1), and every other placement has at least `c + conflict_margin` conflicts (default
+//! margin 2). If the detections of a candidate hold `e` errors (missed or invented marks, stray
+//! nodes), the true placement has at most `e` conflicts, and a wrong `P` is accepted only if
+//! `c + 2 <= e`: a single error can cost an identification but never produce a wrong one. A target of one face without a code is the exception: a candidate that covers the
 //! whole grid is accepted in the rotation whose column axis points most nearly along image +x
 //! (a consistent choice among the grid's symmetric labelings, never a mirrored one).
 
@@ -52,6 +52,8 @@ pub(crate) struct Placement {
     pub offset: (i32, i32),
     /// Seen marks the placement explains.
     pub matched: usize,
+    /// Its conflicts (at most the tolerated number).
+    pub conflicts: usize,
     /// Conflicts of the best other placement (`None` when there is no other).
     pub runner_up: Option<usize>,
 }
@@ -231,9 +233,12 @@ pub(crate) fn place(
     faces: &[(usize, &Face)],
     view: &CandidateView<'_>,
     single_codeless: bool,
-    min_marks: usize,
-    margin: usize,
+    rule: &Rule,
 ) -> Result<Placement, Rejection> {
+    let (min_marks, margin, tolerated) = (rule.min_marks, rule.margin, rule.tolerated);
+    // Placements with this many conflicts can neither be accepted nor block another.
+    let hopeless = tolerated + margin;
+    let reach = hopeless as i32 - 1;
     let (mut imin, mut imax, mut jmin, mut jmax) = (i32::MAX, i32::MIN, i32::MAX, i32::MIN);
     for &(i, j) in view.cells {
         imin = imin.min(i);
@@ -254,20 +259,36 @@ pub(crate) fn place(
             let ylo = corners.iter().map(|p| p.1).min().unwrap_or(0);
             let yhi = corners.iter().map(|p| p.1).max().unwrap_or(0);
             let (w, h) = (xhi - xlo + 1, yhi - ylo + 1);
-            if w > g.cols || h > g.rows {
+            // One stray node (clutter, or a feature of a neighbouring face) may stretch the
+            // lattice by one row or column beyond the face: such placements are enumerated too,
+            // each node outside the grid counting as a conflict, so that the stray node makes
+            // the true placement a near miss instead of removing it from the comparison.
+            if w > g.cols + reach || h > g.rows + reach {
                 continue;
             }
             let full = w == g.cols && h == g.rows;
-            for oy in (-ylo)..=(g.rows - 1 - yhi) {
-                for ox in (-xlo)..=(g.cols - 1 - xhi) {
+            let rotated: Vec<(i32, i32)> = view.cells.iter().map(|&c| rotate(k, c)).collect();
+            for oy in (-ylo - reach)..=(g.rows - 1 - yhi + reach) {
+                for ox in (-xlo - reach)..=(g.cols - 1 - xhi + reach) {
+                    let outside = rotated
+                        .iter()
+                        .filter(|&&(x, y)| {
+                            let (x, y) = (x + ox, y + oy);
+                            x < 0 || y < 0 || x >= g.cols || y >= g.rows
+                        })
+                        .count();
+                    if outside >= hopeless {
+                        continue;
+                    }
                     let (conflicts, matched) = score(face, &g, k, (ox, oy), view, &mut cache);
+                    let conflicts = conflicts + outside;
                     scored.push(Scored {
                         conflicts,
                         matched,
                         face: fi,
                         turns: k,
                         offset: (ox, oy),
-                        full,
+                        full: full && outside == 0,
                     });
                 }
             }
@@ -299,37 +320,51 @@ pub(crate) fn place(
                 turns: s.turns,
                 offset: s.offset,
                 matched: 0,
+                conflicts: 0,
                 runner_up: None,
             });
         }
     }
-    match zero.len() {
-        0 => Err(Rejection::NoFit { nodes, best_conflicts: Some(scored[0].conflicts) }),
-        1 => {
-            let best = zero[0];
-            let runner_up = scored.get(1).map(|s| s.conflicts);
-            if best.matched < min_marks {
-                return Err(Rejection::TooFewMarks { nodes, seen: best.matched, need: min_marks });
-            }
-            if let Some(r) = runner_up {
-                if r < margin {
-                    return Err(Rejection::TooClose {
-                        nodes,
-                        runner_up_conflicts: r,
-                        need: margin,
-                    });
-                }
-            }
-            Ok(Placement {
-                face: best.face,
-                turns: best.turns,
-                offset: best.offset,
-                matched: best.matched,
-                runner_up,
-            })
-        }
-        n => Err(Rejection::Ambiguous { nodes, placements: n }),
+    let best = &scored[0];
+    if best.conflicts > tolerated {
+        return Err(Rejection::NoFit { nodes, best_conflicts: Some(best.conflicts) });
     }
+    let ties = scored.iter().filter(|s| s.conflicts == best.conflicts).count();
+    if ties > 1 {
+        return Err(Rejection::Ambiguous { nodes, placements: ties });
+    }
+    let runner_up = scored.get(1).map(|s| s.conflicts);
+    if best.matched < min_marks {
+        return Err(Rejection::TooFewMarks { nodes, seen: best.matched, need: min_marks });
+    }
+    if let Some(r) = runner_up {
+        if r < best.conflicts + margin {
+            return Err(Rejection::TooClose {
+                nodes,
+                runner_up_conflicts: r,
+                need: best.conflicts + margin,
+            });
+        }
+    }
+    Ok(Placement {
+        face: best.face,
+        turns: best.turns,
+        offset: best.offset,
+        matched: best.matched,
+        conflicts: best.conflicts,
+        runner_up,
+    })
+}
+
+/// The decision rule's numbers (see the module documentation).
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Rule {
+    /// Seen marks the accepted placement must explain.
+    pub min_marks: usize,
+    /// Conflicts the accepted placement may have.
+    pub tolerated: usize,
+    /// How many more conflicts every other placement must have.
+    pub margin: usize,
 }
 
 /// One enumerated placement and its score.

@@ -26,6 +26,7 @@ fn cameras() -> Vec<(&'static str, Camera)> {
 }
 
 struct Sweep {
+    reasons: std::collections::BTreeMap<&'static str, usize>,
     score: Score,
     views: usize,
     identified_views: usize,
@@ -40,7 +41,12 @@ fn sweep(
     n: u64,
     seed: u64,
 ) -> Sweep {
-    let mut out = Sweep { score: Score::default(), views: 0, identified_views: 0 };
+    let mut out = Sweep {
+        reasons: Default::default(),
+        score: Score::default(),
+        views: 0,
+        identified_views: 0,
+    };
     for name in names {
         let t = target(name);
         for (cname, cam) in cameras() {
@@ -53,6 +59,9 @@ fn sweep(
                 let sc = s.score(&id);
                 if sc.wrong > 0 {
                     eprintln!("WRONG {name} {cname} view {k}: {sc:?} rejected {:?}", id.rejected);
+                }
+                for (k, v) in id.left_out_counts() {
+                    *out.reasons.entry(k).or_insert(0) += v;
                 }
                 out.views += 1;
                 out.identified_views += (sc.correct > 0) as usize;
@@ -71,4 +80,50 @@ fn full_views_are_identified_without_a_wrong_identity() {
     eprintln!("full views: {} views, {:?}, identified {:.4}", r.views, r.score, frac);
     assert_eq!(r.score.wrong, 0);
     assert!(frac >= 0.99, "identified fraction {frac}");
+}
+
+#[test]
+fn hard_views_never_give_a_wrong_identity() {
+    // Dropped features, clutter in every list, missed and spurious marks, occluders, steep
+    // tilts and targets larger than the image (cut by its border).
+    let scene = Scene {
+        noise_px: 0.3,
+        drop: 0.08,
+        mark_drop: 0.05,
+        clutter: 40,
+        clutter_marks: 4,
+        occluders: 1,
+        occluder_radius: 0.12,
+    };
+    let r = sweep(&TARGETS, &scene, (0.6, 2.2), 65.0, 0.25, 80, 12);
+    let frac = r.score.correct as f64 / r.score.truth as f64;
+    eprintln!(
+        "hard views: {} views ({} with identities), {:?}, identified {:.4}",
+        r.views, r.identified_views, r.score, frac
+    );
+    eprintln!("left out (all detections, clutter included): {:?}", r.reasons);
+    assert_eq!(r.score.wrong, 0);
+    // Measured 0.693 on 2026-12-01 (many of these views show too little of the target to be
+    // unambiguous); a drop below 0.65 says the matcher lost recall.
+    assert!(frac >= 0.65, "identified fraction {frac}");
+}
+
+/// A per-target report of the hard sweep (run with `--ignored --nocapture`).
+#[test]
+#[ignore]
+fn report_hard_views_by_target() {
+    let scene = Scene {
+        noise_px: 0.3,
+        drop: 0.08,
+        mark_drop: 0.05,
+        clutter: 40,
+        clutter_marks: 4,
+        occluders: 1,
+        occluder_radius: 0.12,
+    };
+    for name in TARGETS {
+        let r = sweep(&[name], &scene, (0.6, 2.2), 65.0, 0.25, 80, 12);
+        let frac = r.score.correct as f64 / r.score.truth as f64;
+        eprintln!("{name}: {:?} {frac:.3} {:?}", r.score, r.reasons);
+    }
 }
