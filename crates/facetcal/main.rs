@@ -8,6 +8,7 @@ use clap::{Parser, Subcommand};
 mod demo;
 mod exit;
 mod output;
+mod solve;
 mod target;
 mod undistort;
 
@@ -25,6 +26,8 @@ enum Command {
     Demo(demo::DemoArgs),
     /// Check a target file or write its printable sheets.
     Target(target::TargetArgs),
+    /// Calibrate from a correspondence file (target points and their pixels, per view).
+    Solve(solve::SolveArgs),
     /// Remove the lens distortion from images with a calibration.
     Undistort(undistort::UndistortArgs),
 }
@@ -33,6 +36,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Demo(a) => demo::run(a),
         Command::Target(a) => target::run(a),
+        Command::Solve(a) => solve::run(a),
         Command::Undistort(a) => undistort::run(a),
     }
 }

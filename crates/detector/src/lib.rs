@@ -15,12 +15,14 @@
 //! ```
 #![deny(missing_docs)]
 
+mod blobs;
 pub mod checker;
 pub mod error;
 pub mod features;
 pub mod filter;
 pub mod image;
 pub mod options;
+pub mod perspective;
 
 use facetcal_model::PatternKind;
 
@@ -28,6 +30,7 @@ pub use error::DetectError;
 pub use features::{CheckerCorner, Detections, Dot, Ellipse, Mark, SquareOutline};
 pub use image::GreyImage;
 pub use options::DetectorOptions;
+pub use perspective::{circle_centre_offset, correct_dot_centre};
 
 /// Detects the features of every pattern kind the options list.
 pub fn detect(img: &GreyImage, opts: &DetectorOptions) -> Result<Detections, DetectError> {
@@ -40,5 +43,17 @@ pub fn detect(img: &GreyImage, opts: &DetectorOptions) -> Result<Detections, Det
     if opts.wants(PatternKind::Checkerboard) {
         out.checker_corners = checker::detect_checker_corners(img, opts);
     }
+    // Blobs: dots, squares and every kind's marks. A round blob is a mark when it lies inside
+    // a square, within 2.5 diameters of a checker corner (a cell-centre disc), or among
+    // neighbours of its ink at least 1.8 times its diameter (a dot grid's gap mark).
+    let want_squares = opts.wants(PatternKind::SquareGrid);
+    let (blobs, squares) = blobs::detect_blobs(img, opts, want_squares);
+    let corners: Vec<_> = out.checker_corners.iter().map(|c| c.position).collect();
+    let (dots, marks) = blobs::classify(blobs, &squares, &corners);
+    if opts.wants(PatternKind::DotGrid) {
+        out.dots = dots;
+    }
+    out.squares = squares;
+    out.marks = marks;
     Ok(out)
 }

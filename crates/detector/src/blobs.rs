@@ -1,0 +1,526 @@
+//! Dots, isolated squares and face-code marks: a local-mean threshold, connected components
+//! (imageproc), moment shape tests, then subpixel measurement on the grey values.
+//!
+//! - Threshold: a pixel is dark if `I < m - delta`, light if `I > m + delta`, with `m` the
+//!   mean over a square of radius `threshold_radius` (integral image) and
+//!   `delta = min_contrast / 4`.
+//! - Shape test in whitened coordinates `u = L^-1 (p - mean)` (`L L^T` the component's second
+//!   moments): every point of a uniform ellipse lies within `|u| <= 2`, the corners of a
+//!   parallelogram (an affine square) reach `|u| = sqrt(6) = 2.45`. Round: `max |u| < 2.2`.
+//! - Dot centre: the centroid of `w = (b(p) - I(p)) / (b(p) - f)` over an ellipse 3 px larger
+//!   than the blob, with `b` a plane fitted to an annulus outside it and `f` the ink level;
+//!   the PSF and the pixel integration are symmetric kernels of unit sum, so they leave this
+//!   first moment unchanged; the region is re-centred twice.
+//! - Square corners: the intersections of lines fitted (total least squares) to the points
+//!   where the grey level crosses the mid-level between ink and ground, along profiles normal
+//!   to each side over its middle 80 %, every half pixel.
+
+use facetcal_model::Ink;
+use image::{GrayImage, Luma};
+use imageproc::region_labelling::{Connectivity, connected_components};
+use nalgebra::{Matrix2, Matrix3, Point2, SymmetricEigen, Vector2, Vector3};
+
+use crate::features::{Dot, Ellipse, Mark, SquareOutline};
+use crate::filter::estimate_noise;
+use crate::image::GreyImage;
+use crate::options::DetectorOptions;
+
+/// Moments of one connected component.
+#[derive(Clone, Copy, Debug)]
+struct Component {
+    ink: Ink,
+    area: f64,
+    mean: Point2<f64>,
+    cov: Matrix2<f64>,
+    bbox: [usize; 4],
+    label: u32,
+}
+
+/// A round blob measured on the grey values, before classification.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Blob {
+    pub(crate) dot: Dot,
+    /// Equivalent diameter, pixels.
+    pub(crate) diameter: f64,
+}
+
+/// Local means over `(2r + 1)^2` squares (clipped at the border), from an `f64` integral image.
+fn local_mean(img: &GreyImage, r: usize) -> Vec<f32> {
+    let (w, h) = (img.width(), img.height());
+    let mut ii = vec![0.0f64; (w + 1) * (h + 1)];
+    let d = img.data();
+    for y in 0..h {
+        let mut row = 0.0;
+        for x in 0..w {
+            row += d[y * w + x] as f64;
+            ii[(y + 1) * (w + 1) + x + 1] = ii[y * (w + 1) + x + 1] + row;
+        }
+    }
+    let mut out = vec![0.0f32; w * h];
+    for y in 0..h {
+        let (y0, y1) = (y.saturating_sub(r), (y + r + 1).min(h));
+        for x in 0..w {
+            let (x0, x1) = (x.saturating_sub(r), (x + r + 1).min(w));
+            let s = ii[y1 * (w + 1) + x1] - ii[y0 * (w + 1) + x1] - ii[y1 * (w + 1) + x0]
+                + ii[y0 * (w + 1) + x0];
+            out[y * w + x] = (s / ((x1 - x0) * (y1 - y0)) as f64) as f32;
+        }
+    }
+    out
+}
+
+fn components(mask: &GrayImage, ink: Ink, opts: &DetectorOptions) -> (Vec<Component>, Vec<u32>) {
+    let labels = connected_components(mask, Connectivity::Eight, Luma([0u8]));
+    let (w, h) = (mask.width() as usize, mask.height() as usize);
+    let raw = labels.into_raw();
+    let n = raw.iter().copied().max().unwrap_or(0) as usize;
+    // Sums: count, x, y, xx, xy, yy, bbox, border flag.
+    let mut s = vec![[0.0f64; 6]; n + 1];
+    let mut bb = vec![[usize::MAX, usize::MAX, 0usize, 0usize]; n + 1];
+    let mut border = vec![false; n + 1];
+    for y in 0..h {
+        for x in 0..w {
+            let l = raw[y * w + x] as usize;
+            if l == 0 {
+                continue;
+            }
+            let (fx, fy) = (x as f64, y as f64);
+            let t = &mut s[l];
+            t[0] += 1.0;
+            t[1] += fx;
+            t[2] += fy;
+            t[3] += fx * fx;
+            t[4] += fx * fy;
+            t[5] += fy * fy;
+            let b = &mut bb[l];
+            b[0] = b[0].min(x);
+            b[1] = b[1].min(y);
+            b[2] = b[2].max(x);
+            b[3] = b[3].max(y);
+            if x == 0 || y == 0 || x + 1 == w || y + 1 == h {
+                border[l] = true;
+            }
+        }
+    }
+    let max_area = opts.max_blob_fraction * (w * h) as f64;
+    let mut out = Vec::new();
+    for l in 1..=n {
+        let t = s[l];
+        if border[l] || t[0] < opts.min_blob_area || t[0] > max_area {
+            continue;
+        }
+        let mx = t[1] / t[0];
+        let my = t[2] / t[0];
+        // Pixel-area variance 1/12 added: each pixel is a unit square.
+        let cov = Matrix2::new(
+            t[3] / t[0] - mx * mx + 1.0 / 12.0,
+            t[4] / t[0] - mx * my,
+            t[4] / t[0] - mx * my,
+            t[5] / t[0] - my * my + 1.0 / 12.0,
+        );
+        out.push(Component {
+            ink,
+            area: t[0],
+            mean: Point2::new(mx, my),
+            cov,
+            bbox: bb[l],
+            label: l as u32,
+        });
+    }
+    (out, raw)
+}
+
+/// Largest whitened radius of a component's pixels.
+fn max_whitened_radius(c: &Component, labels: &[u32], w: usize) -> Option<(f64, Matrix2<f64>)> {
+    let inv = c.cov.try_inverse()?;
+    let mut m: f64 = 0.0;
+    for y in c.bbox[1]..=c.bbox[3] {
+        for x in c.bbox[0]..=c.bbox[2] {
+            if labels[y * w + x] == c.label {
+                let d = Vector2::new(x as f64 - c.mean.x, y as f64 - c.mean.y);
+                m = m.max(d.dot(&(inv * d)));
+            }
+        }
+    }
+    Some((m.sqrt(), inv))
+}
+
+fn ellipse_of(centre: Point2<f64>, cov: &Matrix2<f64>) -> Ellipse {
+    let e = SymmetricEigen::new(*cov);
+    let (i, j) = if e.eigenvalues[0] >= e.eigenvalues[1] { (0, 1) } else { (1, 0) };
+    let v = e.eigenvectors.column(i);
+    let mut angle = v[1].atan2(v[0]);
+    if angle <= -std::f64::consts::FRAC_PI_2 {
+        angle += std::f64::consts::PI;
+    } else if angle > std::f64::consts::FRAC_PI_2 {
+        angle -= std::f64::consts::PI;
+    }
+    Ellipse {
+        centre,
+        semi_major: 2.0 * e.eigenvalues[i].max(0.0).sqrt(),
+        semi_minor: 2.0 * e.eigenvalues[j].max(0.0).sqrt(),
+        angle,
+    }
+}
+
+/// Subpixel centroid of a round blob on the grey values.
+fn measure_dot(img: &GreyImage, c: &Component, noise: f64) -> Option<Blob> {
+    let (w, h) = (img.width() as isize, img.height() as isize);
+    let base = ellipse_of(c.mean, &c.cov);
+    let (a, b) = (base.semi_major, base.semi_minor);
+    let (ca, sa) = (base.angle.cos(), base.angle.sin());
+    // Ellipse metric with semi-axes grown by `g` px.
+    let metric = |d: Vector2<f64>, g: f64| {
+        let u = ca * d.x + sa * d.y;
+        let v = -sa * d.x + ca * d.y;
+        (u / (a + g)).powi(2) + (v / (b + g)).powi(2)
+    };
+    let sign = if c.ink == Ink::Dark { 1.0 } else { -1.0 };
+    let mut centre = c.mean;
+    let reach = (a + 8.0).ceil() as isize;
+    let mut result = None;
+    for _ in 0..3 {
+        let (cx, cy) = (centre.x.round() as isize, centre.y.round() as isize);
+        let (x0, x1) = ((cx - reach).max(0), (cx + reach).min(w - 1));
+        let (y0, y1) = ((cy - reach).max(0), (cy + reach).min(h - 1));
+        // Ground plane b = p0 + p1 dx + p2 dy on the annulus; ink level from the core.
+        let mut ata = Matrix3::<f64>::zeros();
+        let mut atb = Vector3::<f64>::zeros();
+        let (mut core, mut ncore) = (0.0, 0);
+        for y in y0..=y1 {
+            for x in x0..=x1 {
+                let d = Vector2::new(x as f64 - centre.x, y as f64 - centre.y);
+                let v = img.get(x as usize, y as usize)? as f64;
+                let m_out = metric(d, 4.0);
+                if m_out > 1.0 && metric(d, 7.0) <= 1.0 {
+                    let r = Vector3::new(1.0, d.x, d.y);
+                    ata += r * r.transpose();
+                    atb += r * v;
+                }
+                if metric(d, 0.0) <= 0.25 {
+                    core += v;
+                    ncore += 1;
+                }
+            }
+        }
+        if ncore == 0 {
+            return None;
+        }
+        let plane = ata.try_inverse()? * atb;
+        let ink = core / ncore as f64;
+        let (mut sw, mut sx, mut sy) = (0.0, 0.0, 0.0);
+        let (mut sxx, mut sxy, mut syy) = (0.0, 0.0, 0.0);
+        let mut lever = Vector2::<f64>::zeros();
+        for y in y0..=y1 {
+            for x in x0..=x1 {
+                let d = Vector2::new(x as f64 - centre.x, y as f64 - centre.y);
+                if metric(d, 3.0) > 1.0 {
+                    continue;
+                }
+                let v = img.get(x as usize, y as usize)? as f64;
+                let ground = plane[0] + plane[1] * d.x + plane[2] * d.y;
+                let depth = sign * (ground - ink);
+                if depth <= 0.0 {
+                    return None;
+                }
+                let wt = sign * (ground - v) / depth;
+                sw += wt;
+                sx += wt * d.x;
+                sy += wt * d.y;
+                sxx += wt * d.x * d.x;
+                sxy += wt * d.x * d.y;
+                syy += wt * d.y * d.y;
+                lever += Vector2::new(d.x * d.x, d.y * d.y) / (depth * depth);
+            }
+        }
+        if sw <= 1.0 {
+            return None;
+        }
+        let shift = Vector2::new(sx / sw, sy / sw);
+        let new_centre = centre + shift;
+        let cov = Matrix2::new(
+            sxx / sw - shift.x * shift.x,
+            sxy / sw - shift.x * shift.y,
+            sxy / sw - shift.x * shift.y,
+            syy / sw - shift.y * shift.y,
+        );
+        let var = noise * noise * 0.5 * (lever.x + lever.y) / (sw * sw);
+        let contrast = sign * (plane[0] - ink);
+        result = Some((new_centre, cov, sw, var.max(0.0).sqrt(), contrast));
+        centre = new_centre;
+        if shift.norm() < 1e-3 {
+            break;
+        }
+    }
+    let (centre, cov, area, sigma, _contrast) = result?;
+    if !(centre.x.is_finite() && centre.y.is_finite()) || (centre - c.mean).norm() > 2.0 {
+        return None;
+    }
+    let ellipse = ellipse_of(centre, &cov);
+    if !(ellipse.semi_major.is_finite() && ellipse.semi_minor > 0.5) {
+        return None;
+    }
+    let dot = Dot { centre, sigma, ellipse, ink: c.ink, area };
+    Some(Blob { dot, diameter: 2.0 * (area / std::f64::consts::PI).sqrt() })
+}
+
+/// Grey level at a point (bilinear), for profiles.
+fn profile_crossing(img: &GreyImage, p: Point2<f64>, n: Vector2<f64>, reach: f64) -> Option<f64> {
+    // Samples every 0.25 px from -reach (inside, ink) to +reach (outside, ground).
+    let steps = (reach / 0.25).round() as i32;
+    let vals: Vec<f64> = (-steps..=steps)
+        .map(|k| {
+            let t = k as f64 * 0.25;
+            img.sample(p.x + t * n.x, p.y + t * n.y)
+        })
+        .collect();
+    let lo = *vals.first()?;
+    let hi = *vals.last()?;
+    if hi - lo < 0.02 {
+        return None;
+    }
+    let mid = 0.5 * (lo + hi);
+    let mut found = None;
+    for k in 0..vals.len() - 1 {
+        if (vals[k] - mid) * (vals[k + 1] - mid) <= 0.0 && vals[k + 1] != vals[k] {
+            if found.is_some() {
+                return None;
+            }
+            let f = (mid - vals[k]) / (vals[k + 1] - vals[k]);
+            found = Some((k as f64 + f - steps as f64) * 0.25);
+        }
+    }
+    found
+}
+
+/// Total least squares line through points: (point on line, unit direction).
+fn fit_line(pts: &[Point2<f64>]) -> Option<(Point2<f64>, Vector2<f64>)> {
+    if pts.len() < 3 {
+        return None;
+    }
+    let n = pts.len() as f64;
+    let m = pts.iter().fold(Vector2::zeros(), |a, p| a + p.coords) / n;
+    let mut c = Matrix2::zeros();
+    for p in pts {
+        let d = p.coords - m;
+        c += d * d.transpose();
+    }
+    let e = SymmetricEigen::new(c);
+    let i = if e.eigenvalues[0] >= e.eigenvalues[1] { 0 } else { 1 };
+    let v = e.eigenvectors.column(i);
+    Some((Point2::from(m), Vector2::new(v[0], v[1])))
+}
+
+fn intersect(
+    a: (Point2<f64>, Vector2<f64>),
+    b: (Point2<f64>, Vector2<f64>),
+) -> Option<Point2<f64>> {
+    let m = Matrix2::new(a.1.x, -b.1.x, a.1.y, -b.1.y);
+    let t = m.try_inverse()? * (b.0 - a.0);
+    let p = a.0 + a.1 * t.x;
+    (p.x.is_finite() && p.y.is_finite()).then_some(p)
+}
+
+/// Corners of a square-like dark component.
+fn measure_square(
+    img: &GreyImage,
+    c: &Component,
+    labels: &[u32],
+    inv: &Matrix2<f64>,
+) -> Option<SquareOutline> {
+    let w = img.width();
+    // Coarse corners: the farthest pixels in whitened space, one per quadrant of angle around
+    // the farthest one.
+    let mut pts: Vec<(f64, f64, Point2<f64>)> = Vec::new();
+    for y in c.bbox[1]..=c.bbox[3] {
+        for x in c.bbox[0]..=c.bbox[2] {
+            if labels[y * w + x] == c.label {
+                let d = Vector2::new(x as f64 - c.mean.x, y as f64 - c.mean.y);
+                let r = d.dot(&(inv * d));
+                pts.push((r, d.y.atan2(d.x), Point2::new(x as f64, y as f64)));
+            }
+        }
+    }
+    let first = pts.iter().max_by(|a, b| a.0.total_cmp(&b.0))?.1;
+    let mut coarse = [Point2::origin(); 4];
+    let mut whitened_angles = [0.0; 4];
+    for (k, slot) in coarse.iter_mut().enumerate() {
+        let _ = k;
+        *slot = Point2::origin();
+    }
+    // Angles in image space are not 90 degrees apart under perspective; sectors are taken in
+    // whitened space where an affine square is a square.
+    let l = nalgebra::Cholesky::new(*inv)?.l();
+    let wang = |p: Point2<f64>| {
+        let d = Vector2::new(p.x - c.mean.x, p.y - c.mean.y);
+        let u = l.transpose() * d;
+        u.y.atan2(u.x)
+    };
+    let first_pt = pts.iter().find(|p| p.1 == first)?.2;
+    let a0 = wang(first_pt);
+    for k in 0..4 {
+        let target = a0 + k as f64 * std::f64::consts::FRAC_PI_2;
+        let best = pts
+            .iter()
+            .filter(|p| {
+                let da = (wang(p.2) - target + std::f64::consts::PI)
+                    .rem_euclid(std::f64::consts::TAU)
+                    - std::f64::consts::PI;
+                da.abs() < 0.7
+            })
+            .max_by(|a, b| a.0.total_cmp(&b.0))?;
+        coarse[k] = best.2;
+        whitened_angles[k] = target;
+    }
+    // Sides k: coarse[k] -> coarse[k+1]; profiles along the outward normal.
+    let mut lines = Vec::with_capacity(4);
+    for k in 0..4 {
+        let (p, q) = (coarse[k], coarse[(k + 1) % 4]);
+        let len = (q - p).norm();
+        if len < 4.0 {
+            return None;
+        }
+        let t = (q - p) / len;
+        let mut n = Vector2::new(-t.y, t.x);
+        let mid = Point2::from((p.coords + q.coords) * 0.5);
+        if n.dot(&(mid - c.mean)) < 0.0 {
+            n = -n;
+        }
+        let reach = (0.2 * len).clamp(2.0, 6.0);
+        let count = (2.0 * len).floor().max(3.0) as usize;
+        let mut edge = Vec::with_capacity(count);
+        for i in 0..count {
+            let s = 0.1 * len + 0.8 * len * (i as f64 + 0.5) / count as f64;
+            let base = p + t * s;
+            if let Some(off) = profile_crossing(img, base, n, reach) {
+                edge.push(base + n * off);
+            }
+        }
+        // A second pass along the fitted line removes the coarse line's pixel-level error.
+        let (lp, ld) = fit_line(&edge)?;
+        let mut n2 = Vector2::new(-ld.y, ld.x);
+        if n2.dot(&n) < 0.0 {
+            n2 = -n2;
+        }
+        let mut edge2 = Vec::with_capacity(count);
+        for e in &edge {
+            let base = lp + ld * ld.dot(&(e - lp));
+            if let Some(off) = profile_crossing(img, base, n2, reach) {
+                edge2.push(base + n2 * off);
+            }
+        }
+        lines.push(fit_line(&edge2)?);
+    }
+    let mut corners = [Point2::origin(); 4];
+    for k in 0..4 {
+        corners[k] = intersect(lines[(k + 3) % 4], lines[k])?;
+        if (corners[k] - coarse[k]).norm() > 4.0 {
+            return None;
+        }
+    }
+    // Clockwise in the image (y down: increasing atan2 angle), starting nearest the top-left.
+    let centre = corners.iter().fold(Vector2::zeros(), |a, p| a + p.coords) / 4.0;
+    corners.sort_by(|a, b| {
+        (a.y - centre.y).atan2(a.x - centre.x).total_cmp(&(b.y - centre.y).atan2(b.x - centre.x))
+    });
+    let start = (0..4)
+        .min_by(|&i, &j| (corners[i].x + corners[i].y).total_cmp(&(corners[j].x + corners[j].y)))?;
+    corners.rotate_left(start);
+    Some(SquareOutline { corners, sigma: 0.0 })
+}
+
+/// Round blobs (both inks) and square outlines.
+pub(crate) fn detect_blobs(
+    img: &GreyImage,
+    opts: &DetectorOptions,
+    want_squares: bool,
+) -> (Vec<Blob>, Vec<SquareOutline>) {
+    let (w, h) = (img.width(), img.height());
+    if w < 8 || h < 8 {
+        return (Vec::new(), Vec::new());
+    }
+    let mean = local_mean(img, opts.threshold_radius);
+    let delta = (opts.min_contrast / 4.0) as f32;
+    let noise = estimate_noise(img);
+    let mut dark = GrayImage::new(w as u32, h as u32);
+    let mut light = GrayImage::new(w as u32, h as u32);
+    for (i, (&v, &m)) in img.data().iter().zip(&mean).enumerate() {
+        if v < m - delta {
+            dark.as_mut()[i] = 255;
+        } else if v > m + delta {
+            light.as_mut()[i] = 255;
+        }
+    }
+    drop(mean);
+    let mut blobs = Vec::new();
+    let mut squares = Vec::new();
+    for (mask, ink) in [(&dark, Ink::Dark), (&light, Ink::Light)] {
+        let (comps, labels) = components(mask, ink, opts);
+        for c in &comps {
+            let Some((r, inv)) = max_whitened_radius(c, &labels, w) else { continue };
+            if r < 2.2 {
+                if let Some(b) = measure_dot(img, c, noise) {
+                    blobs.push(b);
+                }
+            } else if want_squares && ink == Ink::Dark && r < 3.0 && c.area >= 16.0 {
+                if let Some(mut s) = measure_square(img, c, &labels, &inv) {
+                    s.sigma = noise * 0.0;
+                    squares.push(s);
+                }
+            }
+        }
+    }
+    (blobs, squares)
+}
+
+/// Splits round blobs into dots and marks (see [`crate::detect`]).
+pub(crate) fn classify(
+    blobs: Vec<Blob>,
+    squares: &[SquareOutline],
+    corners: &[Point2<f64>],
+) -> (Vec<Dot>, Vec<Mark>) {
+    let mut dots = Vec::new();
+    let mut marks = Vec::new();
+    for (i, b) in blobs.iter().enumerate() {
+        let c = b.dot.centre;
+        let mark = |b: &Blob| Mark { centre: b.dot.centre, diameter: b.diameter, ink: b.dot.ink };
+        // Inside a square: the square grid's mark.
+        let in_square = squares.iter().any(|s| inside_quad(&s.corners, c));
+        // A checker mark sits at a cell centre, 0.707 cell from four corners.
+        let near_corner = corners.iter().any(|p| (p - c).norm() < 2.5 * b.diameter);
+        // A dot grid's mark is a small dot among dots 2.5 times larger.
+        let mut near: Vec<(f64, f64)> = blobs
+            .iter()
+            .enumerate()
+            .filter(|(j, o)| *j != i && o.dot.ink == b.dot.ink)
+            .map(|(_, o)| ((o.dot.centre - c).norm(), o.diameter))
+            .collect();
+        near.sort_by(|a, b| a.0.total_cmp(&b.0));
+        near.truncate(4);
+        let small = near.len() >= 2 && {
+            let mut d: Vec<f64> = near.iter().map(|n| n.1).collect();
+            d.sort_by(f64::total_cmp);
+            d[d.len() / 2] > 1.8 * b.diameter && near[0].0 < 4.0 * d[d.len() / 2]
+        };
+        if in_square || near_corner || small {
+            marks.push(mark(b));
+        } else {
+            dots.push(b.dot);
+        }
+    }
+    (dots, marks)
+}
+
+fn inside_quad(q: &[Point2<f64>; 4], p: Point2<f64>) -> bool {
+    let mut sign = 0.0;
+    for k in 0..4 {
+        let (a, b) = (q[k], q[(k + 1) % 4]);
+        let cr = (b.x - a.x) * (p.y - a.y) - (b.y - a.y) * (p.x - a.x);
+        if sign == 0.0 {
+            sign = cr.signum();
+        } else if cr.signum() != sign {
+            return false;
+        }
+    }
+    true
+}
