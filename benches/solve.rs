@@ -45,7 +45,8 @@ fn synthetic_views() -> Vec<ViewObservations> {
     (0..50)
         .map(|v| {
             let aa = Vector3::new(rng.range(-0.5, 0.5), rng.range(-0.5, 0.5), rng.range(-0.3, 0.3));
-            let pose = Pose::from_axis_angle(aa, Vector3::new(-95.0, -45.0, 420.0 + rng.range(0.0, 80.0)));
+            let pose =
+                Pose::from_axis_angle(aa, Vector3::new(-95.0, -45.0, 420.0 + rng.range(0.0, 80.0)));
             let points = (0..200)
                 .filter_map(|k| {
                     let x = Point3::new((k % 20) as f64 * 10.0, (k / 20) as f64 * 10.0, 0.0);
