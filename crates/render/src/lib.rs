@@ -41,6 +41,7 @@ pub mod image;
 pub mod photometry;
 pub mod poses;
 pub mod raster;
+mod rays;
 pub mod render;
 pub mod scene;
 pub mod truth;

@@ -3,7 +3,7 @@
 //! any photometry.
 //!
 //! Method, for `s` sub-squares per pixel side:
-//! 1. Each sub-square's four corners are unprojected to rays ([`Camera::unproject`]) and the
+//! 1. Each sub-square's four corners are unprojected to rays ([`crate::rays`]) and the
 //!    rays intersected with every face plane. Perspective maps the sub-square's straight edges
 //!    to straight lines on the plane; lens distortion bends them, but across `1/s` pixel the
 //!    bending is of order `kappa (1/s)^2 / 8` pixels (`kappa` the image curvature of a line,
@@ -33,6 +33,7 @@ use rayon::prelude::*;
 
 use crate::area::{Xy, polygon_rect_area, quad_rect_area, signed_area, square_disc_area};
 use crate::image::FloatImage;
+use crate::rays::RayCaster;
 use crate::scene::{Background, Occluder, Scene};
 
 /// Sub-rows computed together (one ray cache per chunk).
@@ -396,10 +397,13 @@ fn lattice(a: i64, b: i64, seed: u64) -> f64 {
 /// Everything fixed for one view's raster.
 struct ViewRaster<'a> {
     camera: &'a Camera,
+    caster: RayCaster,
     faces: Vec<FaceView>,
     background: BackgroundView,
     occluders: &'a [Occluder],
     back: f64,
+    /// Image centre `((w - 1) / 2, (h - 1) / 2)`, pixels.
+    centre: Xy,
     s: usize,
     /// Sub-square padding for the Gaussian, and pixel padding for the pillbox.
     pad_sub: usize,
@@ -429,9 +433,14 @@ impl ViewRaster<'_> {
             }
         }
         let bg = || {
+            // Pinhole-plane position of the ray about the image centre: a function of the ray
+            // alone, so the background moves with the principal point like the target does.
             let p = if c.z > 1e-9 * c.norm() {
                 let i = &self.camera.intrinsics;
-                [i.fx * c.x / c.z + i.skew * c.y / c.z + i.cx, i.fy * c.y / c.z + i.cy]
+                [
+                    i.fx * c.x / c.z + i.skew * c.y / c.z + self.centre[0],
+                    i.fy * c.y / c.z + self.centre[1],
+                ]
             } else {
                 [f64::MAX, f64::MAX]
             };
@@ -546,10 +555,12 @@ pub(crate) fn optical_image(scene: &Scene, index: usize, pose: &Pose) -> FloatIm
     let (pad_px, pill) = pillbox_taps(scene.optics.defocus_radius_px);
     let raster = ViewRaster {
         camera,
+        caster: RayCaster::new(camera),
         faces: scene.target.faces().iter().map(|f| FaceView::new(f, pose)).collect(),
         background: BackgroundView::new(&scene.background, camera, scene.seed, index),
         occluders: &scene.occluders,
         back: scene.photometry.back_reflectance,
+        centre: [(camera.width as f64 - 1.0) * 0.5, (camera.height as f64 - 1.0) * 0.5],
         s,
         pad_sub,
         pad_px,
@@ -572,7 +583,7 @@ pub(crate) fn optical_image(scene: &Scene, index: usize, pose: &Pose) -> FloatIm
             let y = raster.corner(j0 + jr);
             for i in 0..ncx {
                 let p = nalgebra::Point2::new(raster.corner(i), y);
-                rays.push(camera.unproject(&p).ok());
+                rays.push(raster.caster.ray(&p));
             }
         }
         let mut hits: Vec<Vec<Option<Xy>>> = Vec::with_capacity(nf);

@@ -148,9 +148,9 @@ impl Default for Photometry {
     }
 }
 
-/// What a ray that hits no face sees: a far wall fixed to the camera, described on the pinhole
-/// image plane of the ray (`fx x/z + cx`, `fy y/z + cy`), so it moves with the principal point
-/// like everything else.
+/// What a ray that hits no face sees: a far wall fixed to the camera, described at the ray's
+/// pinhole-plane position about the image centre (`fx x/z + (w - 1)/2`, `fy y/z + (h - 1)/2`,
+/// pixels): a function of the ray alone, so it moves with the principal point like the target.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
 pub struct Background {
@@ -661,4 +661,67 @@ fn check_occluders(o: &[Occluder]) -> Result<(), RenderError> {
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn target() -> Target {
+        let text = std::fs::read_to_string(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/../../targets/checkerboard.json"
+        ))
+        .unwrap();
+        Target::from_json(&text).unwrap()
+    }
+
+    fn camera() -> Camera {
+        Camera::pinhole(64, 48, 50.0, 50.0, 31.5, 23.5)
+    }
+
+    #[test]
+    fn the_defaults_are_valid() {
+        let s = Scene::builder(target(), camera()).pose(Pose::identity()).build().unwrap();
+        assert_eq!(s.supersampling(), DEFAULT_SUPERSAMPLING);
+        assert_eq!(s.bits(), BitDepth::Eight);
+        assert_eq!(s.view_count(), 1);
+    }
+
+    #[test]
+    fn bad_settings_name_the_field() {
+        let b = || Scene::builder(target(), camera()).pose(Pose::identity());
+        let cases: Vec<(SceneBuilder, &str)> = vec![
+            (b().psf_sigma_px(f64::NAN), "optics.psf_sigma_px"),
+            (b().noise_sigma(-1.0), "photometry.noise_sigma"),
+            (b().supersampling(0), "supersampling"),
+            (b().poses(vec![]), "poses"),
+            (
+                b().photometry(Photometry { gamma: 0.0, ..Photometry::default() }),
+                "photometry.gamma",
+            ),
+            (
+                b().occluders(vec![
+                    Occluder::Disc { centre: [1.0, 1.0], radius: 2.0, reflectance: 0.1 },
+                    Occluder::Polygon { points: vec![[0.0, 0.0], [1.0, 1.0]], reflectance: 0.5 },
+                ]),
+                "occluders[1].points",
+            ),
+        ];
+        for (builder, path) in cases {
+            let e = builder.build().unwrap_err().to_string();
+            assert!(e.starts_with(path), "expected {path}, got {e}");
+        }
+    }
+
+    #[test]
+    fn polygon_occluders_contain_what_is_inside() {
+        // An L-shaped (non-convex) polygon.
+        let o = Occluder::Polygon {
+            points: vec![[0.0, 0.0], [2.0, 0.0], [2.0, 1.0], [1.0, 1.0], [1.0, 2.0], [0.0, 2.0]],
+            reflectance: 0.0,
+        };
+        assert!(o.contains([0.5, 1.5]) && o.contains([1.5, 0.5]));
+        assert!(!o.contains([1.5, 1.5]) && !o.contains([-0.1, 0.5]));
+    }
 }

@@ -210,3 +210,51 @@ pub(crate) fn view_truth(
     }
     ViewTruth { index, image: image_name(index), pose: *pose, visible, hidden }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use facetcal_model::Target;
+
+    #[test]
+    fn truth_files_round_trip_and_refuse_other_versions() {
+        let text = std::fs::read_to_string(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/../../targets/corner.json"
+        ))
+        .unwrap();
+        let target = Target::from_json(&text).unwrap();
+        let camera = Camera::pinhole(320, 240, 300.0, 300.0, 159.5, 119.5);
+        // Looking into the corner from the (1, 1, 1) side.
+        let scene = Scene::builder(target, camera)
+            .random_poses(crate::PoseGenerator::new(2, 3, [700.0, 800.0]))
+            .build()
+            .unwrap();
+        let views: Vec<ViewTruth> =
+            (0..2).map(|i| crate::view_truth_of(&scene, i).unwrap()).collect();
+        assert!(views.iter().all(|v| !v.visible.is_empty()));
+        let file = TruthFile::new(&scene, views);
+        let back = TruthFile::from_json(&file.to_json()).unwrap();
+        // serde_json's default float parsing may differ from the written value in the last
+        // bit, and poses go through axis-angle: compare with tolerances.
+        assert_eq!(back.views.len(), 2);
+        for (a, b) in back.views.iter().zip(&file.views) {
+            assert_eq!(a.visible.len(), b.visible.len());
+            for (p, q) in a.visible.iter().zip(&b.visible) {
+                assert_eq!(p.id, q.id);
+                assert!((p.pixel - q.pixel).norm() < 1e-9 && (p.point - q.point).norm() < 1e-9);
+            }
+            assert_eq!(a.hidden.len(), b.hidden.len());
+            assert_eq!(a.image, b.image);
+            assert!(a.pose.angle_to(&b.pose) < 1e-12);
+            assert!((a.pose.translation - b.pose.translation).norm() < 1e-12);
+        }
+        assert!(back.camera == file.camera && back.target == file.target);
+        let bad = file.to_json().replacen("\"version\": 1", "\"version\": 2", 1);
+        let e = TruthFile::from_json(&bad).unwrap_err().to_string();
+        assert!(e.starts_with("version:"), "{e}");
+        let bad = file.to_json().replacen("\"border_px\"", "\"border\"", 1);
+        let e = TruthFile::from_json(&bad).unwrap_err().to_string();
+        assert!(e.starts_with("views[0].visible[0]"), "{e}");
+    }
+}
