@@ -3,5 +3,6 @@
 
 mod util;
 
+mod render;
 mod solve;
 mod target;

@@ -8,6 +8,7 @@ use clap::{Parser, Subcommand};
 mod demo;
 mod exit;
 mod output;
+mod render;
 mod solve;
 mod target;
 mod undistort;
@@ -26,6 +27,8 @@ enum Command {
     Demo(demo::DemoArgs),
     /// Check a target file or write its printable sheets.
     Target(target::TargetArgs),
+    /// Render synthetic images of a scene with their exact ground truth.
+    Render(render::RenderArgs),
     /// Calibrate from a correspondence file (target points and their pixels, per view).
     Solve(solve::SolveArgs),
     /// Remove the lens distortion from images with a calibration.
@@ -36,6 +39,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Demo(a) => demo::run(a),
         Command::Target(a) => target::run(a),
+        Command::Render(a) => render::run(a),
         Command::Solve(a) => solve::run(a),
         Command::Undistort(a) => undistort::run(a),
     }
