@@ -203,19 +203,15 @@ impl Distortion {
         match *self {
             Distortion::None => f64::INFINITY,
             Distortion::BrownConrady { k1, k2, k3, .. } => {
-                // d/dr [r (1 + k1 r^2 + k2 r^4 + k3 r^6)] = 1 + 3 k1 s + 5 k2 s^2 + 7 k3 s^3, s = r^2
-                let g = |r: f64| {
-                    let s = r * r;
-                    1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * 7.0 * k3))
-                };
-                first_root(g, 20.0).unwrap_or(f64::INFINITY)
+                // d/dr [r (1 + k1 r^2 + k2 r^4 + k3 r^6)] = 1 + 3 k1 u + 5 k2 u^2 + 7 k3 u^3, u = r^2
+                let slope = [1.0, 3.0 * k1, 5.0 * k2, 7.0 * k3, 0.0];
+                smallest_root(&slope, 400.0).map_or(f64::INFINITY, f64::sqrt)
             }
             Distortion::KannalaBrandt { k1, k2, k3, k4 } => {
-                let g = |t: f64| {
-                    let s = t * t;
-                    1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * (7.0 * k3 + s * 9.0 * k4)))
-                };
-                first_root(g, std::f64::consts::PI).unwrap_or(std::f64::consts::PI)
+                // d theta_d / d theta = 1 + 3 k1 s + 5 k2 s^2 + 7 k3 s^3 + 9 k4 s^4, s = theta^2
+                let slope = [1.0, 3.0 * k1, 5.0 * k2, 7.0 * k3, 9.0 * k4];
+                let pi = std::f64::consts::PI;
+                smallest_root(&slope, pi * pi).map_or(pi, f64::sqrt)
             }
         }
     }
@@ -339,24 +335,65 @@ fn pinhole_point_jacobian(p: &Point3<f64>) -> Matrix2x3<f64> {
     Matrix2x3::new(iz, 0.0, -p.x * iz * iz, 0.0, iz, -p.y * iz * iz)
 }
 
-/// The first point in `(0, limit]` where `g` (positive at 0) stops being positive, refined by
-/// bisection, or `None`.
-fn first_root(g: impl Fn(f64) -> f64, limit: f64) -> Option<f64> {
-    const STEPS: usize = 4000;
+/// Value of the polynomial `c[0] + c[1] x + ... + c[4] x^4`.
+fn poly(c: &[f64; 5], x: f64) -> f64 {
+    c[0] + x * (c[1] + x * (c[2] + x * (c[3] + x * c[4])))
+}
+
+/// The smallest root in `(0, hi]` of a polynomial of degree at most 4 with `c[0] > 0`, found
+/// exactly (up to bisection to machine precision): the roots of the derivative split the
+/// interval into monotone pieces, and the first piece whose end is not positive holds it.
+fn smallest_root(c: &[f64; 5], hi: f64) -> Option<f64> {
+    let mut cuts = critical_points(c, hi);
+    cuts.push(hi);
     let mut lo = 0.0;
-    for i in 1..=STEPS {
-        let hi = limit * i as f64 / STEPS as f64;
-        if g(hi) <= 0.0 {
-            let (mut a, mut b) = (lo, hi);
-            for _ in 0..60 {
-                let m = 0.5 * (a + b);
-                if g(m) > 0.0 { a = m } else { b = m }
+    for b in cuts {
+        if poly(c, b) <= 0.0 {
+            let (mut x0, mut x1) = (lo, b);
+            for _ in 0..200 {
+                let m = 0.5 * (x0 + x1);
+                if m <= x0 || m >= x1 {
+                    break;
+                }
+                if poly(c, m) > 0.0 { x0 = m } else { x1 = m }
             }
-            return Some(a);
+            return Some(x0);
         }
-        lo = hi;
+        lo = b;
     }
     None
+}
+
+/// The roots in `(0, hi)` of the derivative of a polynomial of degree at most 4, ascending.
+fn critical_points(c: &[f64; 5], hi: f64) -> Vec<f64> {
+    // Derivative c[1] + 2 c[2] x + 3 c[3] x^2 + 4 c[4] x^3 as a degree-4 array.
+    let d = [c[1], 2.0 * c[2], 3.0 * c[3], 4.0 * c[4], 0.0];
+    if d[1..].iter().all(|&v| v == 0.0) {
+        return Vec::new();
+    }
+    // The derivative's own critical points make it monotone piecewise: recurse, then bisect.
+    let mut cuts = critical_points(&d, hi);
+    cuts.push(hi);
+    let mut out = Vec::new();
+    let mut lo = 0.0;
+    for b in cuts {
+        let (fa, fb) = (poly(&d, lo), poly(&d, b));
+        if fa == 0.0 && lo > 0.0 {
+            out.push(lo);
+        } else if fa * fb < 0.0 {
+            let (mut x0, mut x1) = (lo, b);
+            for _ in 0..200 {
+                let m = 0.5 * (x0 + x1);
+                if m <= x0 || m >= x1 {
+                    break;
+                }
+                if (poly(&d, m) < 0.0) == (fa < 0.0) { x0 = m } else { x1 = m }
+            }
+            out.push(0.5 * (x0 + x1));
+        }
+        lo = b;
+    }
+    out
 }
 
 /// A calibrated camera: image size, intrinsics and distortion.
@@ -736,6 +773,27 @@ mod tests {
             }
             assert!(worst < 1e-9, "{:?}: worst round trip {worst:e} px", cam.distortion.kind());
         }
+    }
+
+    /// The domain limits against their closed forms: for Brown-Conrady with k1 only the radial
+    /// slope 1 + 3 k1 r^2 vanishes at r = sqrt(-1 / (3 k1)); for Kannala-Brandt with k1 only,
+    /// 1 + 3 k1 theta^2 vanishes at theta = sqrt(-1 / (3 k1)).
+    #[test]
+    fn valid_limits_match_closed_forms() {
+        let b = Distortion::BrownConrady { k1: -0.3, k2: 0.0, p1: 0.0, p2: 0.0, k3: 0.0 };
+        assert!((b.valid_limit() - (1.0f64 / 0.9).sqrt()).abs() < 1e-12);
+        let k = Distortion::KannalaBrandt { k1: -0.1, k2: 0.0, k3: 0.0, k4: 0.0 };
+        assert!((k.valid_limit() - (1.0f64 / 0.3).sqrt()).abs() < 1e-12);
+        // Two positive roots of the slope, 1 - 3 u + 2 u^2 = (1 - u)(1 - 2u): the first, u = 1/2.
+        let two = Distortion::BrownConrady { k1: -1.0, k2: 0.4, p1: 0.0, p2: 0.0, k3: 0.0 };
+        assert!((two.valid_limit() - 0.5f64.sqrt()).abs() < 1e-12, "{}", two.valid_limit());
+        // A slope that dips but stays positive: no limit.
+        let dip = Distortion::BrownConrady { k1: -0.2, k2: 0.1, p1: 0.0, p2: 0.0, k3: 0.0 };
+        assert!(dip.valid_limit().is_infinite());
+        assert_eq!(
+            Distortion::KannalaBrandt { k1: 0.0, k2: 0.0, k3: 0.0, k4: 0.0 }.valid_limit(),
+            std::f64::consts::PI
+        );
     }
 
     #[test]
