@@ -1,7 +1,8 @@
 //! Detector speed and working memory (criterion; run with `cargo bench --bench detect`).
 //!
-//! - `checker/<w>x<h>`: `detect` on a rendered checkerboard view, checker kind only, one
-//!   thread (the detector uses none of its own). 1920 x 1080 is the figure of the contributor
+//! - `checker/<w>x<h>`: `detect` on a rendered checkerboard view, checker kind only (corners
+//!   and face-code marks), one thread (the detector uses none of its own);
+//!   `checker/corners_only_1920x1080` the corner stage alone. 1920 x 1080 is the figure of the contributor
 //!   guide; 960 x 540 and a 2 x 2 tiling at 3840 x 2160 show the cost against the pixel count.
 //! - `blur/*`: the detector's separable `f32` Gaussian against
 //!   `imageproc::filter::gaussian_blur_f32`, the reason the detector has its own.
@@ -42,12 +43,25 @@ unsafe impl GlobalAlloc for Counting {
 static ALLOC: Counting = Counting;
 
 fn checker_image(width: u32, height: u32) -> GreyImage {
-    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/targets/checkerboard.json");
-    let target = Target::load(std::path::Path::new(path)).expect("bundled target loads");
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let path = ["targets/checkerboard.json", "../../targets/checkerboard.json"]
+        .iter()
+        .map(|p| root.join(p))
+        .find(|p| p.exists())
+        .expect("bundled checkerboard target");
+    let target = Target::load(&path).expect("bundled target loads");
     // The 280 x 220 mm face filling most of the height, slightly turned.
     let f = height as f64 * 1.1;
-    let cam = Camera::pinhole(width, height, f, f, (width as f64 - 1.0) / 2.0, (height as f64 - 1.0) / 2.0);
-    let pose = Pose::from_axis_angle(Vector3::new(0.2, -0.25, 0.1), Vector3::new(-140.0, -110.0, 300.0));
+    let cam = Camera::pinhole(
+        width,
+        height,
+        f,
+        f,
+        (width as f64 - 1.0) / 2.0,
+        (height as f64 - 1.0) / 2.0,
+    );
+    let pose =
+        Pose::from_axis_angle(Vector3::new(0.2, -0.25, 0.1), Vector3::new(-140.0, -110.0, 300.0));
     let scene = Scene::builder(target, cam)
         .pose(pose)
         .psf_sigma_px(1.0)
@@ -100,13 +114,20 @@ fn bench(c: &mut Criterion) {
             b.iter(|| detect(img, &opts).expect("detects"))
         });
     }
+    // The corner stage alone (no blobs, so no face-code marks).
+    g.bench_function("corners_only_1920x1080", |b| {
+        b.iter(|| facetcal_detector::checker::detect_checker_corners(&hd, &opts))
+    });
     g.finish();
 
     let mut g = c.benchmark_group("blur");
     g.sample_size(20);
-    g.bench_function("detector_f32_sigma1.5_1920x1080", |b| b.iter(|| filter::gaussian_blur(&hd, 1.5)));
-    let ip = image::ImageBuffer::<image::Luma<f32>, Vec<f32>>::from_raw(1920, 1080, hd.data().to_vec())
-        .expect("sizes match");
+    g.bench_function("detector_f32_sigma1.5_1920x1080", |b| {
+        b.iter(|| filter::gaussian_blur(&hd, 1.5))
+    });
+    let ip =
+        image::ImageBuffer::<image::Luma<f32>, Vec<f32>>::from_raw(1920, 1080, hd.data().to_vec())
+            .expect("sizes match");
     g.bench_function("imageproc_f32_sigma1.5_1920x1080", |b| {
         b.iter(|| imageproc::filter::gaussian_blur_f32(&ip, 1.5))
     });

@@ -28,6 +28,8 @@ use crate::image::GreyImage;
 use crate::options::DetectorOptions;
 
 const RING_SAMPLES: usize = 16;
+/// Largest difference of the mean levels of opposite ring sectors, over the amplitude.
+const MAX_SECTOR_MISMATCH: f64 = 0.25;
 
 /// Working buffers of the checker path, reusable across images of the same size.
 #[derive(Default)]
@@ -47,6 +49,8 @@ struct Ring {
     /// Whether the sector from `crossings[0]` to `crossings[1]` is dark.
     first_dark: bool,
     asymmetry: f64,
+    /// Largest difference of opposite sector means over the amplitude.
+    sector_mismatch: f64,
 }
 
 fn ring(img: &GreyImage, c: Point2<f64>, r: f64) -> Option<Ring> {
@@ -92,10 +96,28 @@ fn ring(img: &GreyImage, c: Point2<f64>, r: f64) -> Option<Ring> {
         return None;
     }
     let amplitude = hi / nh as f64 - lo / nl as f64;
+    // Mean of each of the four sectors: opposite sectors of a checker corner have one ink.
+    let mut sm = [0.0f64; 4];
+    let mut sn = [0usize; 4];
+    for (k, &val) in v.iter().enumerate() {
+        let t = k as f64 * step;
+        let sector = crossings.iter().filter(|&&c| c <= t).count() % 4;
+        sm[sector] += val;
+        sn[sector] += 1;
+    }
+    let mut means = [0.0; 4];
+    for i in 0..4 {
+        if sn[i] == 0 {
+            return None;
+        }
+        means[i] = sm[i] / sn[i] as f64;
+    }
+    let sector_mismatch =
+        (means[0] - means[2]).abs().max((means[1] - means[3]).abs()) / amplitude.max(1e-12);
     // The sample in the middle of the first sector tells its ink.
     let mid = 0.5 * (crossings[0] + crossings[1]);
     let first_dark = img.sample(c.x + r * mid.cos(), c.y + r * mid.sin()) < mean;
-    Some(Ring { amplitude, crossings, first_dark, asymmetry: asym / dev })
+    Some(Ring { amplitude, crossings, first_dark, asymmetry: asym / dev, sector_mismatch })
 }
 
 /// The two edge directions from a ring, by the convention of [`CheckerCorner::edges`].
@@ -386,7 +408,13 @@ pub fn detect_checker_corners_with(
         if r1.asymmetry > opts.max_asymmetry || r2.asymmetry > opts.max_asymmetry {
             continue;
         }
-        if r1.amplitude < 0.5 * opts.min_contrast {
+        // Crossing edges of unrelated objects (overlapping clutter) make four sectors of four
+        // different levels; a checker corner has two levels.
+        if r1.sector_mismatch > MAX_SECTOR_MISMATCH || r2.sector_mismatch > MAX_SECTOR_MISMATCH {
+            continue;
+        }
+        // The ring's light-minus-dark mean is about 0.8 of the contrast for a sharp corner.
+        if r1.amplitude < 0.75 * opts.min_contrast {
             continue;
         }
         let sigma = (0.5 * (cov[(0, 0)] + cov[(1, 1)])).max(0.0).sqrt();

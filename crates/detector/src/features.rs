@@ -17,10 +17,12 @@ pub struct CheckerCorner {
     pub sigma: f64,
     /// Strength of the junction (larger is stronger), in grey levels of the normalised image.
     pub strength: f64,
-    /// Unit directions of the two edges through the junction, each in `[0, pi)` as an angle;
-    /// `edges[0]` is the edge that has a dark cell on its left when walking along it
-    /// counter-clockwise from `edges[1]` (a convention the matcher uses to tell the parity of
-    /// the corner).
+    /// Unit directions `(cos a, sin a)` of the two edge lines through the junction, each angle
+    /// `a` in `[0, pi)` measured from +x towards +y (so, on screen with y down, clockwise).
+    /// Convention (sharpened by the detector, used by the matcher to tell the corner's parity):
+    /// the sector swept from `edges[0]` to `edges[1]` by increasing angle (less than pi) is
+    /// dark, and so is the opposite sector; the two others are light. Measured on the ring of
+    /// the ring test, accurate to a few degrees.
     pub edges: [Vector2<f64>; 2],
 }
 

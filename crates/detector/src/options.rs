@@ -23,7 +23,7 @@ pub struct DetectorOptions {
     /// checker corner; the pixels used lie within `3 refine_sigma` of the corner. Default 2.
     pub refine_sigma: f64,
     /// Largest ring asymmetry `sum |v(t) - v(t + pi)| / sum |v(t) - mean|` of a checker corner.
-    /// Default 0.35.
+    /// Default 0.2.
     pub max_asymmetry: f64,
     /// Smallest ratio of the two Hessian eigenvalue magnitudes at a checker corner
     /// (`tan^2(alpha / 2)` for edges meeting at `alpha`). Default 0.15 (`alpha` down to 42
@@ -53,7 +53,7 @@ impl Default for DetectorOptions {
             checker_smoothing: 1.5,
             ring_radius: 5.0,
             refine_sigma: 2.0,
-            max_asymmetry: 0.35,
+            max_asymmetry: 0.2,
             min_saddle_balance: 0.15,
             noise_factor: 4.0,
             max_candidates: 200_000,
