@@ -312,7 +312,14 @@ pub fn estimate_pose(
         return Err(SolverError::TooFewPoints { method: "pose", got: points.len(), need: 4 });
     }
     let mut rays = Vec::with_capacity(points.len());
+    // Without distortion the ray is K^-1 u; the iterative inverse is needed only otherwise.
+    let pinhole = camera.distortion.coefficients().iter().all(|&c| c == 0.0);
     for p in points {
+        if pinhole {
+            let d = camera.intrinsics.to_normalised(&p.image);
+            rays.push(Point2::new(d.x, d.y));
+            continue;
+        }
         let r = camera.unproject(&p.image)?;
         if r.z <= 1e-9 {
             return Err(SolverError::NoPhysicalSolution(
@@ -461,7 +468,13 @@ pub fn calibrate(
     let mut poses = Vec::with_capacity(views.len());
     let mut drop_reasons: Vec<Option<String>> = vec![None; views.len()];
     let mut warnings = Vec::new();
-    let pose_options = Options { max_rejection_rounds: 0, ..options.clone() };
+    // The starting poses need not be exact: the joint refinement polishes them.
+    let pose_options = Options {
+        max_rejection_rounds: 0,
+        function_tolerance: 1e-6,
+        max_iterations: 30,
+        ..options.clone()
+    };
     for (v, view) in views.iter().enumerate() {
         let n = view.points.len();
         let mut active = true;
