@@ -615,13 +615,13 @@ pub(crate) fn optical_image(scene: &Scene, index: usize, pose: &Pose) -> FloatIm
     // Pass 2: along y, giving the extended pixel image (eh x ew).
     let mut ext = vec![0.0f64; eh * ew];
     ext.par_chunks_mut(ew).enumerate().for_each(|(y, row)| {
+        // Row by row of `mid`, so that memory is read in order.
         let base = y * s;
-        for (x, o) in row.iter_mut().enumerate() {
-            let mut acc = 0.0;
-            for (k, ck) in c.iter().enumerate() {
-                acc += ck * mid[(base + k) * ew + x];
+        for (k, ck) in c.iter().enumerate() {
+            let src = &mid[(base + k) * ew..(base + k + 1) * ew];
+            for (o, v) in row.iter_mut().zip(src) {
+                *o += ck * v;
             }
-            *o = acc;
         }
     });
 
