@@ -414,8 +414,11 @@ pub(crate) fn minimise(state: &mut State, layout: &Layout, views: &[ViewData], o
         for i in 0..ng {
             predicted += 0.5 * dg[i] * (lambda * ug[i] * dg[i] + gg[i]);
         }
+        // The candidate's blocks are computed at once (most steps are accepted, and the
+        // cost comes with them), so each iteration projects every point once.
         let candidate = apply(state, layout, &dg, &dp);
-        let new_cost = total_cost(&candidate, views, &o.loss);
+        let cand_blocks = blocks(&candidate, layout, views, &o.loss);
+        let new_cost: f64 = cand_blocks.iter().flatten().map(|b| b.cost).sum();
         let rho = (cost - new_cost) / predicted;
         if new_cost.is_finite() && new_cost < cost && predicted > 0.0 {
             records.push(IterationRecord { cost: new_cost, lambda, step_norm, accepted: true });
@@ -424,8 +427,8 @@ pub(crate) fn minimise(state: &mut State, layout: &Layout, views: &[ViewData], o
             lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
             nu = 2.0;
             let old = cost;
-            bl = blocks(state, layout, views, &o.loss);
-            cost = bl.iter().flatten().map(|b| b.cost).sum();
+            bl = cand_blocks;
+            cost = new_cost;
             if decrease <= o.function_tolerance * old {
                 break Termination::FunctionTolerance;
             }
