@@ -27,6 +27,8 @@ enum Command {
     Demo(demo::DemoArgs),
     /// Check a target file or write its printable sheets.
     Target(target::TargetArgs),
+    /// Remove the lens distortion from images with a calibration.
+    Undistort(undistort::UndistortArgs),
     /// Render synthetic images of a scene with their exact ground truth.
     Render(render::RenderArgs),
     /// Calibrate from a correspondence file (target points and their pixels, per view).
@@ -39,6 +41,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Demo(a) => demo::run(a),
         Command::Target(a) => target::run(a),
+        Command::Undistort(a) => undistort::run(a),
         Command::Render(a) => render::run(a),
         Command::Solve(a) => solve::run(a),
         Command::Undistort(a) => undistort::run(a),
