@@ -473,6 +473,41 @@ pub(crate) fn detect_blobs(
     (blobs, squares)
 }
 
+/// Points bucketed on a uniform grid, for neighbour queries in time linear in the count.
+struct Grid {
+    cell: f64,
+    buckets: std::collections::HashMap<(i64, i64), Vec<usize>>,
+}
+
+impl Grid {
+    fn new(points: impl Iterator<Item = Point2<f64>>, cell: f64) -> Self {
+        let mut buckets: std::collections::HashMap<(i64, i64), Vec<usize>> = Default::default();
+        for (i, p) in points.enumerate() {
+            buckets
+                .entry(((p.x / cell).floor() as i64, (p.y / cell).floor() as i64))
+                .or_default()
+                .push(i);
+        }
+        Grid { cell, buckets }
+    }
+
+    /// Indices of the points within `r` of `p` (candidates: the caller checks distances).
+    fn near(&self, p: Point2<f64>, r: f64) -> Vec<usize> {
+        let k = (r / self.cell).ceil() as i64;
+        let (cx, cy) = ((p.x / self.cell).floor() as i64, (p.y / self.cell).floor() as i64);
+        let mut out = Vec::new();
+        for dy in -k..=k {
+            for dx in -k..=k {
+                if let Some(v) = self.buckets.get(&(cx + dx, cy + dy)) {
+                    out.extend_from_slice(v);
+                }
+            }
+        }
+        out.sort_unstable();
+        out
+    }
+}
+
 /// Splits round blobs into dots and marks (see [`crate::detect`]).
 pub(crate) fn classify(
     blobs: Vec<Blob>,
@@ -481,21 +516,34 @@ pub(crate) fn classify(
 ) -> (Vec<Dot>, Vec<Mark>) {
     let mut dots = Vec::new();
     let mut marks = Vec::new();
+    let blob_grid = Grid::new(blobs.iter().map(|b| b.dot.centre), 32.0);
+    let corner_grid = Grid::new(corners.iter().copied(), 32.0);
+    let square_grid = Grid::new(
+        squares.iter().map(|s| {
+            Point2::from(s.corners.iter().fold(Vector2::zeros(), |a, p| a + p.coords) / 4.0)
+        }),
+        64.0,
+    );
     for (i, b) in blobs.iter().enumerate() {
         let c = b.dot.centre;
         let mark = |b: &Blob| Mark { centre: b.dot.centre, diameter: b.diameter, ink: b.dot.ink };
         // Inside a square: the square grid's mark.
-        let in_square = squares.iter().any(|s| inside_quad(&s.corners, c));
+        let reach = squares.iter().next().map_or(0.0, |_| 4.0 * b.diameter + 64.0);
+        let in_square =
+            square_grid.near(c, reach).into_iter().any(|j| inside_quad(&squares[j].corners, c));
         // A checker mark sits at a cell centre, 0.707 cell from four corners.
-        let near_corner = corners.iter().any(|p| (p - c).norm() < 2.5 * b.diameter);
-        // A dot grid's mark is a small dot among dots 2.5 times larger.
-        let mut near: Vec<(f64, f64)> = blobs
-            .iter()
-            .enumerate()
-            .filter(|(j, o)| *j != i && o.dot.ink == b.dot.ink)
-            .map(|(_, o)| ((o.dot.centre - c).norm(), o.diameter))
+        let r = 2.5 * b.diameter;
+        let near_corner = corner_grid.near(c, r).into_iter().any(|j| (corners[j] - c).norm() < r);
+        // A dot grid's mark is a small dot among dots 1.8 times larger or more: the four
+        // nearest of its ink within 8 diameters.
+        let mut near: Vec<(f64, f64)> = blob_grid
+            .near(c, 8.0 * b.diameter)
+            .into_iter()
+            .filter(|&j| j != i && blobs[j].dot.ink == b.dot.ink)
+            .map(|j| ((blobs[j].dot.centre - c).norm(), blobs[j].diameter))
+            .filter(|n| n.0 < 8.0 * b.diameter)
             .collect();
-        near.sort_by(|a, b| a.0.total_cmp(&b.0));
+        near.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.total_cmp(&b.1)));
         near.truncate(4);
         let small = near.len() >= 2 && {
             let mut d: Vec<f64> = near.iter().map(|n| n.1).collect();
