@@ -16,7 +16,7 @@
 //! # Method
 //! 1. Start ([`linear`]): a multi-face view gives `P` by the normalised DLT and `K, R, t` by RQ;
 //!    planar views give homographies and Zhang's closed-form `K`; the poses follow from `K`.
-//! 2. Refine ([`refine`]): Levenberg-Marquardt with the pose blocks eliminated by the Schur
+//! 2. Refine (module `refine`): Levenberg-Marquardt with the pose blocks eliminated by the Schur
 //!    complement, normal equations accumulated per view in parallel and summed in view order.
 //! 3. Reject points with `|r| > max(6 sigma, 1 px)` and refine again.
 //! 4. Uncertainty: `Cov = sigma^2 S^-1`, `S` the reduced (Schur) matrix at the solution,
