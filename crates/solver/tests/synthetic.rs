@@ -326,3 +326,47 @@ fn degenerate_configurations_are_refused() {
         .unwrap_err();
     assert!(matches!(e, SolverError::TooFewPoints { got: 3, .. }), "{e}");
 }
+
+/// Warnings where the data do not constrain a parameter: k3 free beside k1 and k2 (radial
+/// terms of neighbouring order are strongly correlated over a small field, common practice),
+/// and the focal length from two nearly fronto-parallel views (a plane parallel to the image
+/// gives no constraint on the focal length, Zhang 2000, section 3.3).
+#[test]
+fn weakly_constrained_parameters_are_warned_about() {
+    let cam = truth();
+    let mut rng = SeededRng::new(21);
+    let (views, _) = planar_views(&cam, 5, 0.2, &mut rng);
+    let o = Options {
+        free: FreeParameters { k3: true, ..FreeParameters::default() },
+        ..Options::default()
+    };
+    let cal = calibrate(&views, (1280, 960), DistortionKind::BrownConrady, None, &o).unwrap();
+    let corr: Vec<_> = cal.warnings.iter().filter(|w| w.kind == "strong-correlation").collect();
+    assert!(corr.iter().any(|w| w.parameters.contains(&"k3".to_string())), "{:?}", cal.warnings);
+    // Two distant views tilted by about 6 degrees.
+    let t = target("checkerboard.json");
+    let c = Point3::new(120.0, 90.0, 0.0);
+    let flat: Vec<ViewObservations> = [(0.1, 0.0), (0.0, 0.1)]
+        .iter()
+        .enumerate()
+        .map(|(v, &(a, b))| {
+            let eye = c + Vector3::new(a, b, -1.0).normalize() * 900.0;
+            observe(&cam, &t.features(), &look_at(c, eye, 0.0), 0.2, &mut rng, format!("f{v}"))
+        })
+        .collect();
+    let cal =
+        calibrate(&flat, (1280, 960), DistortionKind::BrownConrady, None, &Options::default());
+    match cal {
+        Ok(cal) => {
+            let weak: Vec<_> = cal.warnings.iter().filter(|w| w.kind == "weak-parameter").collect();
+            assert!(
+                weak.iter().any(|w| w.parameters == ["fx"])
+                    && weak.iter().any(|w| w.parameters == ["fy"]),
+                "{:?}",
+                cal.warnings
+            );
+        }
+        // Refusing the configuration outright is also a reasoned outcome.
+        Err(e) => assert!(matches!(e, SolverError::ParallelViews { .. }), "{e}"),
+    }
+}
