@@ -3,6 +3,7 @@
 
 mod util;
 
+mod detect;
 mod render;
 mod solve;
 mod target;

@@ -6,6 +6,7 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 mod demo;
+mod detect;
 mod exit;
 mod output;
 mod render;
@@ -27,24 +28,24 @@ enum Command {
     Demo(demo::DemoArgs),
     /// Check a target file or write its printable sheets.
     Target(target::TargetArgs),
-    /// Remove the lens distortion from images with a calibration.
-    Undistort(undistort::UndistortArgs),
+    /// Find and identify a target's features in images.
+    Detect(detect::DetectArgs),
     /// Render synthetic images of a scene with their exact ground truth.
     Render(render::RenderArgs),
-    /// Calibrate from a correspondence file (target points and their pixels, per view).
-    Solve(solve::SolveArgs),
     /// Remove the lens distortion from images with a calibration.
     Undistort(undistort::UndistortArgs),
+    /// Calibrate from a correspondence file (target points and their pixels, per view).
+    Solve(solve::SolveArgs),
 }
 
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Demo(a) => demo::run(a),
         Command::Target(a) => target::run(a),
-        Command::Undistort(a) => undistort::run(a),
+        Command::Detect(a) => detect::run(a),
         Command::Render(a) => render::run(a),
-        Command::Solve(a) => solve::run(a),
         Command::Undistort(a) => undistort::run(a),
+        Command::Solve(a) => solve::run(a),
     }
 }
 

@@ -84,9 +84,13 @@ pub(crate) fn local_map(
     at: Cell,
     radius: i32,
 ) -> Option<PlaneMap> {
-    let mut src = Vec::with_capacity(24);
-    let mut dst = Vec::with_capacity(24);
-    let (mut is, mut js) = (BTreeSet::new(), BTreeSet::new());
+    // At most 48 neighbours (radius 3); fixed buffers keep this allocation-free, bit masks
+    // count the distinct rows and columns.
+    let mut src = [Point2::origin(); 48];
+    let mut dst = [Point2::origin(); 48];
+    let mut n = 0;
+    let (mut is, mut js) = (0u32, 0u32);
+    let radius = radius.min(3);
     for di in -radius..=radius {
         for dj in -radius..=radius {
             if di == 0 && dj == 0 {
@@ -94,19 +98,21 @@ pub(crate) fn local_map(
             }
             let c = (at.0 + di, at.1 + dj);
             if let Some(&k) = cells.get(&c) {
-                src.push(Point2::new(c.0 as f64, c.1 as f64));
-                dst.push(nodes[k].pos);
-                is.insert(c.0);
-                js.insert(c.1);
+                src[n] = Point2::new(c.0 as f64, c.1 as f64);
+                dst[n] = nodes[k].pos;
+                n += 1;
+                is |= 1 << (di + 3);
+                js |= 1 << (dj + 3);
             }
         }
     }
-    if src.len() >= 7 && is.len() >= 3 && js.len() >= 3 {
-        if let Some(h) = fit_homography(&src, &dst) {
+    let (src, dst) = (&src[..n], &dst[..n]);
+    if n >= 7 && is.count_ones() >= 3 && js.count_ones() >= 3 {
+        if let Some(h) = fit_homography(src, dst) {
             return Some(h);
         }
     }
-    fit_affine(&src, &dst)
+    fit_affine(src, dst)
 }
 
 /// A prediction of cell `at`: the image point, the images of the two lattice steps there
@@ -309,43 +315,55 @@ impl<'a> Builder<'a> {
     }
 
     fn grow(&mut self, id: usize, comp: &mut Component) {
+        // Rounds over the frontier: the cells next to those accepted in the previous round,
+        // strongest support first. A cell that failed is tried again only once its support has
+        // grown.
         let mut failed: BTreeMap<Cell, usize> = BTreeMap::new();
-        loop {
-            let mut frontier: BTreeSet<Cell> = BTreeSet::new();
-            for &(i, j) in comp.cells.keys() {
-                for d in [(1, 0), (-1, 0), (0, 1), (0, -1)] {
-                    let q = (i + d.0, j + d.1);
-                    if !comp.cells.contains_key(&q) {
-                        frontier.insert(q);
-                    }
+        let mut pending: BTreeSet<Cell> = BTreeSet::new();
+        let around = |c: Cell, cells: &BTreeMap<Cell, usize>, pending: &mut BTreeSet<Cell>| {
+            for d in [(1, 0), (-1, 0), (0, 1), (0, -1)] {
+                let q = (c.0 + d.0, c.1 + d.1);
+                if !cells.contains_key(&q) {
+                    pending.insert(q);
                 }
             }
-            let mut todo: Vec<(usize, Cell)> = frontier
+        };
+        for &c in comp.cells.keys() {
+            around(c, &comp.cells, &mut pending);
+        }
+        while !pending.is_empty() {
+            let mut todo: Vec<(usize, Cell)> = std::mem::take(&mut pending)
                 .into_iter()
+                .filter(|q| !comp.cells.contains_key(q))
                 .map(|q| (support(&comp.cells, q), q))
                 .filter(|&(sup, q)| failed.get(&q).is_none_or(|&f| sup > f))
                 .collect();
-            if todo.is_empty() {
-                break;
-            }
             todo.sort_by(|x, y| y.0.cmp(&x.0).then(x.1.cmp(&y.1)));
-            let mut grew = false;
             for (_, q) in todo {
+                if comp.cells.contains_key(&q) {
+                    continue;
+                }
                 let sup = support(&comp.cells, q);
                 match self.accept(&comp.cells, q) {
                     Some(k) => {
                         comp.cells.insert(q, k);
                         self.owner[k] = Some(id);
                         failed.remove(&q);
-                        grew = true;
+                        around(q, &comp.cells, &mut pending);
+                        // Failed cells next to a new node have more support now.
+                        for di in -1..=1 {
+                            for dj in -1..=1 {
+                                let r = (q.0 + di, q.1 + dj);
+                                if failed.contains_key(&r) {
+                                    pending.insert(r);
+                                }
+                            }
+                        }
                     }
                     None => {
                         failed.insert(q, sup);
                     }
                 }
-            }
-            if !grew {
-                break;
             }
         }
     }
