@@ -34,9 +34,11 @@ pub struct FeatureTruth {
     pub border_px: f64,
 }
 
-/// Why a feature is not visible.
+/// Why a feature is not visible. Written flattened into [`HiddenFeature`] as
+/// `"reason": "occluded", "occluder": 0` (serde cannot refuse unknown fields of a flattened
+/// enum, so these two types accept them).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(tag = "reason", rename_all = "kebab-case", deny_unknown_fields)]
+#[serde(tag = "reason", rename_all = "kebab-case")]
 pub enum HiddenReason {
     /// The camera model cannot project the point (behind the camera or beyond the lens
     /// model's valid domain).
@@ -59,7 +61,6 @@ pub enum HiddenReason {
 
 /// A feature that is not visible.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct HiddenFeature {
     /// Which feature.
     pub id: FeatureId,
@@ -230,9 +231,22 @@ mod tests {
             .random_poses(crate::PoseGenerator::new(2, 3, [700.0, 800.0]))
             .build()
             .unwrap();
-        let views: Vec<ViewTruth> =
+        let mut views: Vec<ViewTruth> =
             (0..2).map(|i| crate::view_truth_of(&scene, i).unwrap()).collect();
         assert!(views.iter().all(|v| !v.visible.is_empty()));
+        // Every kind of hidden feature must survive the round trip too.
+        let id = views[0].visible[0].id;
+        views[0].hidden.push(HiddenFeature {
+            id,
+            pixel: None,
+            reason: HiddenReason::HiddenByFace { face: 2 },
+        });
+        views[0].hidden.push(HiddenFeature {
+            id,
+            pixel: Some(Point2::new(1.0, 2.0)),
+            reason: HiddenReason::Occluded { occluder: 1 },
+        });
+        views[0].hidden.push(HiddenFeature { id, pixel: None, reason: HiddenReason::BackFacing });
         let file = TruthFile::new(&scene, views);
         let back = TruthFile::from_json(&file.to_json()).unwrap();
         // serde_json's default float parsing may differ from the written value in the last
@@ -245,6 +259,10 @@ mod tests {
                 assert!((p.pixel - q.pixel).norm() < 1e-9 && (p.point - q.point).norm() < 1e-9);
             }
             assert_eq!(a.hidden.len(), b.hidden.len());
+            for (p, q) in a.hidden.iter().zip(&b.hidden) {
+                assert!(p.id == q.id && p.reason == q.reason);
+                assert_eq!(p.pixel.is_some(), q.pixel.is_some());
+            }
             assert_eq!(a.image, b.image);
             assert!(a.pose.angle_to(&b.pose) < 1e-12);
             assert!((a.pose.translation - b.pose.translation).norm() < 1e-12);
