@@ -107,12 +107,12 @@ fn detect_identifies_rendered_views_without_a_wrong_identity() {
     }
     eprintln!("rendered views: {correct} correct, {wrong} wrong, {detected} detected");
     assert_eq!(wrong, 0);
-    // The issue asks for 99 % of the detected true features. Measured 2026-12-02: 1963 of 2154
-    // (91.1 %): every flat target at 100 %, but one face of the box corner in each view and one
-    // fold face fall apart into small candidates or contradict their marks on real detections
-    // (not on synthetic ones). Until that is fixed this guards the measured level.
+    // The issue asks for 99 % of the detected true features. Measured 2026-12-02: 2061 of 2154
+    // (95.7 %): every flat target at 100 %, but in one box-corner view and one fold view a face
+    // grows a sheared lattice (a diagonal taken for an axis) that fits no face, on real
+    // detections only. Until that is fixed this guards the measured level.
     assert!(
-        correct as f64 >= 0.90 * detected as f64,
+        correct as f64 >= 0.95 * detected as f64,
         "{correct} of {detected} detected true features"
     );
 }

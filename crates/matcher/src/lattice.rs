@@ -154,7 +154,7 @@ fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<Pr
 }
 
 /// Whether a detection's own shape agrees with the lattice where it would sit: its edge or side
-/// directions within 15 degrees of the local lattice steps, its sizes within a factor 1.5 of
+/// directions within 25 degrees of the local lattice steps (the detector's edge angles on steep faces are off by more than 15), its sizes within a factor 1.5 of
 /// its neighbours'. Clutter that happens to fall inside the gate rarely passes both.
 fn agrees(
     cells: &BTreeMap<Cell, usize>,
@@ -165,7 +165,7 @@ fn agrees(
 ) -> bool {
     let n = &nodes[k];
     if let (Some([h1, h2]), Some([e1, e2])) = (n.axes, pred.steps) {
-        let c = 15f64.to_radians().cos();
+        let c = 25f64.to_radians().cos();
         let along =
             |e: &Vector2<f64>, h: &Vector2<f64>| (e.dot(h) / (e.norm() * h.norm())).abs() > c;
         if !((along(&e1, &h1) && along(&e2, &h2)) || (along(&e1, &h2) && along(&e2, &h1))) {
