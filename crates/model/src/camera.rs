@@ -335,6 +335,43 @@ fn pinhole_point_jacobian(p: &Point3<f64>) -> Matrix2x3<f64> {
     Matrix2x3::new(iz, 0.0, -p.x * iz * iz, 0.0, iz, -p.y * iz * iz)
 }
 
+/// The `x` in `[0, hi]` with `f(x) = y` for a function increasing on that interval (slope
+/// `df`), by Newton's method safeguarded by bisection; `None` when `y` is not below `f(hi)` or
+/// the iteration does not settle.
+fn invert_increasing(
+    f: impl Fn(f64) -> f64,
+    df: impl Fn(f64) -> f64,
+    y: f64,
+    hi: f64,
+) -> Option<f64> {
+    if y.is_nan() || y >= f(hi) {
+        return None;
+    }
+    let (mut lo, mut up) = (0.0, hi);
+    let mut x = y.min(hi * 0.999);
+    for _ in 0..INVERSE_MAX_ITERATIONS * 2 {
+        let r = f(x) - y;
+        if r.abs() <= 2.0 * f64::EPSILON * y.abs() {
+            return Some(x);
+        }
+        if r > 0.0 {
+            up = x
+        } else {
+            lo = x
+        }
+        let mut next = x - r / df(x);
+        if !(next > lo && next < up) {
+            next = 0.5 * (lo + up);
+        }
+        let done = (next - x).abs() <= INVERSE_TOLERANCE * (1.0 + x);
+        x = next;
+        if done {
+            return Some(x);
+        }
+    }
+    None
+}
+
 /// Value of the polynomial `c[0] + c[1] x + ... + c[4] x^4`.
 fn poly(c: &[f64; 5], x: f64) -> f64 {
     c[0] + x * (c[1] + x * (c[2] + x * (c[3] + x * c[4])))
@@ -618,27 +655,62 @@ impl Camera {
             Distortion::None => Ok(Vector3::new(d.x, d.y, 1.0).normalize()),
             Distortion::BrownConrady { k1, k2, p1, p2, k3 } => {
                 let limit = self.distortion.valid_limit();
-                let mut xy = *d;
+                // Radial part first, by a safeguarded 1-D inverse inside the valid domain; then
+                // Newton's method in 2-D adds the small tangential terms.
+                let rd = d.norm();
+                let radial = |r: f64| {
+                    let u = r * r;
+                    r * (1.0 + u * (k1 + u * (k2 + u * k3)))
+                };
+                let slope = |r: f64| {
+                    let u = r * r;
+                    1.0 + u * (3.0 * k1 + u * (5.0 * k2 + u * 7.0 * k3))
+                };
+                let hi = if limit.is_finite() {
+                    limit
+                } else {
+                    let mut h = rd.max(1.0);
+                    while radial(h) < rd && h < 1e6 {
+                        h *= 2.0;
+                    }
+                    h
+                };
+                let outside = || {
+                    ModelError::OutsideDomain(format!(
+                        "pixel lies outside the distortion model's valid domain \
+                         (distorted radius {rd:.4}, domain edge {:.4} at radius {limit:.4})",
+                        radial(limit)
+                    ))
+                };
+                let r = if rd == 0.0 {
+                    0.0
+                } else {
+                    invert_increasing(radial, slope, rd, hi).ok_or_else(outside)?
+                };
+                let mut xy = if rd == 0.0 { *d } else { d * (r / rd) };
                 for _ in 0..INVERSE_MAX_ITERATIONS {
                     let f = brown_forward(xy.x, xy.y, k1, k2, p1, p2, k3) - d;
                     if !f.iter().all(|v| v.is_finite()) {
                         break;
+                    }
+                    // Where the mapping is nearly flat, rounding keeps the steps from settling
+                    // below the tolerance: a residual at rounding level is as good as it gets.
+                    if f.norm() <= 4.0 * f64::EPSILON * (1.0 + d.norm()) {
+                        if xy.norm() >= limit {
+                            return Err(outside());
+                        }
+                        return Ok(Vector3::new(xy.x, xy.y, 1.0).normalize());
                     }
                     let j = self.distortion.jacobian(&Point3::new(xy.x, xy.y, 1.0)).d_point;
                     let j2 = j.fixed_columns::<2>(0).into_owned();
                     let Some(inv) = j2.try_inverse() else { break };
                     let step = inv * f;
                     xy -= step;
-                    if xy.norm() > limit {
-                        return Err(ModelError::OutsideDomain(format!(
-                            "pixel lies outside the distortion model's valid domain \
-                             (radius {:.4} > {:.4})",
-                            xy.norm(),
-                            limit
-                        )));
-                    }
                     if step.norm() <= INVERSE_TOLERANCE * (1.0 + xy.norm()) {
                         let residual = brown_forward(xy.x, xy.y, k1, k2, p1, p2, k3) - d;
+                        if xy.norm() >= limit {
+                            return Err(outside());
+                        }
                         if residual.norm() <= 1e-12 * (1.0 + d.norm()) {
                             return Ok(Vector3::new(xy.x, xy.y, 1.0).normalize());
                         }
@@ -666,28 +738,13 @@ impl Camera {
                         f(limit)
                     )));
                 }
-                // f is increasing on [0, limit]: Newton safeguarded by bisection.
-                let (mut lo, mut hi) = (0.0, limit);
-                let mut t = theta_d.min(limit * 0.999);
-                for _ in 0..INVERSE_MAX_ITERATIONS * 2 {
+                let slope = |t: f64| {
                     let s = t * t;
-                    let r = f(t) - theta_d;
-                    if r > 0.0 {
-                        hi = t
-                    } else {
-                        lo = t
-                    }
-                    let dt = 1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * (7.0 * k3 + s * 9.0 * k4)));
-                    let mut next = t - r / dt;
-                    if !(next > lo && next < hi) {
-                        next = 0.5 * (lo + hi);
-                    }
-                    let done = (next - t).abs() <= INVERSE_TOLERANCE * (1.0 + t);
-                    t = next;
-                    if done {
-                        let (s, c) = t.sin_cos();
-                        return Ok(Vector3::new(s * d.x / theta_d, s * d.y / theta_d, c));
-                    }
+                    1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * (7.0 * k3 + s * 9.0 * k4)))
+                };
+                if let Some(t) = invert_increasing(f, slope, theta_d, limit) {
+                    let (s, c) = t.sin_cos();
+                    return Ok(Vector3::new(s * d.x / theta_d, s * d.y / theta_d, c));
                 }
                 Err(ModelError::NoConvergence(format!(
                     "inverse fisheye mapping did not converge at theta_d {theta_d:.6}"
