@@ -32,7 +32,8 @@ pub struct UndistortArgs {
 pub fn load_calibration(path: &Path) -> anyhow::Result<CalibrationFile> {
     let text = std::fs::read_to_string(path)
         .with_context(|| format!("calibration file {}", path.display()))?;
-    CalibrationFile::from_json(&text).with_context(|| format!("calibration file {}", path.display()))
+    CalibrationFile::from_json(&text)
+        .with_context(|| format!("calibration file {}", path.display()))
 }
 
 pub fn run(args: UndistortArgs) -> anyhow::Result<ExitCode> {
@@ -62,7 +63,12 @@ pub fn run(args: UndistortArgs) -> anyhow::Result<ExitCode> {
     }))
 }
 
-fn undistort_one(path: &Path, map: &UndistortMap, out: &Path, force: bool) -> anyhow::Result<PathBuf> {
+fn undistort_one(
+    path: &Path,
+    map: &UndistortMap,
+    out: &Path,
+    force: bool,
+) -> anyhow::Result<PathBuf> {
     let loaded = facetcal_imageio::load(path, &LoadOptions::default())?;
     let image = map.apply(&loaded.image)?;
     let stem = path.file_stem().and_then(|s| s.to_str()).unwrap_or("image");
