@@ -3,7 +3,7 @@
 //! any photometry.
 //!
 //! Method, for `s` sub-squares per pixel side:
-//! 1. Each sub-square's four corners are unprojected to rays ([`crate::rays`]) and the
+//! 1. Each sub-square's four corners are unprojected to rays (the private `rays` module) and the
 //!    rays intersected with every face plane. Perspective maps the sub-square's straight edges
 //!    to straight lines on the plane; lens distortion bends them, but across `1/s` pixel the
 //!    bending is of order `kappa (1/s)^2 / 8` pixels (`kappa` the image curvature of a line,
