@@ -18,7 +18,7 @@
 //!    along the strip than across it.
 //! 4. Subpixel location: Newton steps to the saddle point of the image smoothed with
 //!    `refine_sigma`, evaluated at subpixel points with sampled continuous Gaussian kernels
-//!    (see [`refine`]).
+//!    (see the `refine` function).
 
 use nalgebra::{Matrix2, Point2, Vector2};
 
