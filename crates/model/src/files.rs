@@ -114,8 +114,8 @@ pub struct CorrespondenceFile {
     pub views: Vec<ViewPoints>,
 }
 
-/// Parses JSON naming the path of a bad field.
-fn parse_with_path<T: serde::de::DeserializeOwned>(text: &str) -> Result<T, ModelError> {
+/// Parses JSON, naming the path of a bad field (`faces[2].pattern.rows`) in the error.
+pub fn parse_with_path<T: serde::de::DeserializeOwned>(text: &str) -> Result<T, ModelError> {
     let de = &mut serde_json::Deserializer::from_str(text);
     serde_path_to_error::deserialize(de).map_err(|e| {
         let path = e.path().to_string();

@@ -559,16 +559,7 @@ pub struct Target {
 impl TargetSpec {
     /// Parses a target file's text. Shape errors name the JSON path of the field.
     pub fn from_json(text: &str) -> Result<TargetSpec, ModelError> {
-        let de = &mut serde_json::Deserializer::from_str(text);
-        serde_path_to_error::deserialize(de).map_err(|e| {
-            let path = e.path().to_string();
-            let inner = e.into_inner();
-            if path == "." || path == "?" || path.is_empty() {
-                ModelError::Parse(inner.to_string())
-            } else {
-                ModelError::field(path, inner.to_string())
-            }
-        })
+        crate::files::parse_with_path(text)
     }
 
     /// The file's text, pretty-printed.
