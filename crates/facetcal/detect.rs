@@ -12,9 +12,8 @@ use facetcal_imageio::LoadOptions;
 use facetcal_matcher::{DetectionsFile, Identification, MatchOptions, identify};
 use facetcal_model::Target;
 use image::{Rgb, RgbImage};
-use rayon::prelude::*;
 
-use crate::{exit, output};
+use crate::output;
 
 #[derive(Args, Debug)]
 pub struct DetectArgs {
@@ -43,26 +42,7 @@ pub fn run(args: DetectArgs) -> anyhow::Result<ExitCode> {
     if let Some(dir) = &args.overlay {
         output::create_dir(dir)?;
     }
-    let results: Vec<(PathBuf, anyhow::Result<String>)> = args
-        .images
-        .par_iter()
-        .map(|path| (path.clone(), detect_one(path, &target, &args)))
-        .collect();
-    let mut failed = 0;
-    for (path, r) in &results {
-        match r {
-            Ok(line) => println!("{}: {line}", path.display()),
-            Err(e) => {
-                failed += 1;
-                eprintln!("skipped {}: {}", path.display(), exit::chain(e));
-            }
-        }
-    }
-    Ok(ExitCode::from(match failed {
-        0 => exit::OK,
-        n if n == results.len() => exit::DATA,
-        _ => exit::PARTIAL,
-    }))
+    Ok(output::run_batch(&args.images, |path| detect_one(path, &target, &args)))
 }
 
 fn detect_one(path: &Path, target: &Target, args: &DetectArgs) -> anyhow::Result<String> {

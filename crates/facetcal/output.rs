@@ -1,7 +1,10 @@
 //! Writing outputs safely: never overwrite without `--force`, always atomically.
 
 use std::io::Write;
-use std::path::Path;
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+use rayon::prelude::*;
 
 use anyhow::Context;
 
@@ -36,4 +39,29 @@ pub fn write_new(path: &Path, bytes: &[u8], force: bool) -> anyhow::Result<()> {
     tmp.as_file().sync_all().map_err(fail)?;
     tmp.persist(path).map_err(|e| fail(e.error)).with_context(|| "atomic rename")?;
     Ok(())
+}
+
+/// Runs `work` on every input in parallel and reports in input order: each success's line on
+/// standard output, each failure (skipped, the batch goes on) on standard error. The exit code
+/// is success, partial when some inputs failed, bad data when all did.
+pub fn run_batch(
+    inputs: &[PathBuf],
+    work: impl Fn(&Path) -> anyhow::Result<String> + Sync,
+) -> ExitCode {
+    let results: Vec<anyhow::Result<String>> = inputs.par_iter().map(|p| work(p)).collect();
+    let mut failed = 0;
+    for (path, r) in inputs.iter().zip(&results) {
+        match r {
+            Ok(line) => println!("{}: {line}", path.display()),
+            Err(e) => {
+                failed += 1;
+                eprintln!("skipped {}: {}", path.display(), exit::chain(e));
+            }
+        }
+    }
+    ExitCode::from(match failed {
+        0 => exit::OK,
+        n if n == results.len() => exit::DATA,
+        _ => exit::PARTIAL,
+    })
 }

@@ -8,9 +8,8 @@ use clap::Args;
 use facetcal_imageio::LoadOptions;
 use facetcal_model::files::CalibrationFile;
 use facetcal_remap::UndistortMap;
-use rayon::prelude::*;
 
-use crate::{exit, output};
+use crate::output;
 
 #[derive(Args, Debug)]
 pub struct UndistortArgs {
@@ -41,25 +40,8 @@ pub fn run(args: UndistortArgs) -> anyhow::Result<ExitCode> {
     let camera = cal.camera;
     let map = UndistortMap::new(&camera, &camera.intrinsics);
     output::create_dir(&args.out)?;
-    let results: Vec<(PathBuf, anyhow::Result<PathBuf>)> = args
-        .images
-        .par_iter()
-        .map(|path| (path.clone(), undistort_one(path, &map, &args.out, args.force)))
-        .collect();
-    let mut failed = 0;
-    for (path, r) in &results {
-        match r {
-            Ok(out) => println!("{} -> {}", path.display(), out.display()),
-            Err(e) => {
-                failed += 1;
-                eprintln!("skipped {}: {}", path.display(), exit::chain(e));
-            }
-        }
-    }
-    Ok(ExitCode::from(match failed {
-        0 => exit::OK,
-        n if n == results.len() => exit::DATA,
-        _ => exit::PARTIAL,
+    Ok(output::run_batch(&args.images, |path| {
+        undistort_one(path, &map, &args.out, args.force).map(|out| format!("-> {}", out.display()))
     }))
 }
 
