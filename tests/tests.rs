@@ -7,3 +7,4 @@ mod detect;
 mod render;
 mod solve;
 mod target;
+mod undistort;
