@@ -71,3 +71,12 @@ impl RenderError {
         RenderError::Field { path: path.into(), reason: reason.into() }
     }
 }
+
+/// Parses JSON with the model crate's reader, so that shape errors name the JSON path of the
+/// bad field exactly as target files do.
+pub(crate) fn parse_json<T: serde::de::DeserializeOwned>(text: &str) -> Result<T, RenderError> {
+    facetcal_model::files::parse_with_path(text).map_err(|e| match e {
+        ModelError::Field { path, reason } => RenderError::Field { path, reason },
+        other => RenderError::Parse(other.to_string()),
+    })
+}

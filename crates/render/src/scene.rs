@@ -305,16 +305,7 @@ pub struct Scene {
 impl SceneSpec {
     /// Parses a scene file's text. Shape errors name the JSON path of the field.
     pub fn from_json(text: &str) -> Result<SceneSpec, RenderError> {
-        let de = &mut serde_json::Deserializer::from_str(text);
-        serde_path_to_error::deserialize(de).map_err(|e| {
-            let path = e.path().to_string();
-            let inner = e.into_inner();
-            if path == "." || path.is_empty() {
-                RenderError::Parse(inner.to_string())
-            } else {
-                RenderError::field(path, inner.to_string())
-            }
-        })
+        crate::error::parse_json(text)
     }
 }
 

@@ -137,16 +137,7 @@ impl TruthFile {
 
     /// Parses and checks a truth file. Errors name the JSON path of the bad field.
     pub fn from_json(text: &str) -> Result<TruthFile, RenderError> {
-        let de = &mut serde_json::Deserializer::from_str(text);
-        let t: TruthFile = serde_path_to_error::deserialize(de).map_err(|e| {
-            let path = e.path().to_string();
-            let inner = e.into_inner();
-            if path == "." || path.is_empty() {
-                RenderError::Parse(inner.to_string())
-            } else {
-                RenderError::field(path, inner.to_string())
-            }
-        })?;
+        let t: TruthFile = crate::error::parse_json(text)?;
         if t.format != TRUTH_FORMAT {
             return Err(RenderError::field(
                 "format",
