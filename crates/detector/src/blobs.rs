@@ -1,9 +1,12 @@
-//! Dots, isolated squares and face-code marks: a local-mean threshold, connected components
-//! (imageproc), moment shape tests, then subpixel measurement on the grey values.
+//! Dots, isolated squares and face-code marks: a local-mean threshold, connected components of
+//! its runs, moment shape tests, then subpixel measurement on the grey values.
 //!
 //! - Threshold: a pixel is dark if `I < m - delta`, light if `I > m + delta`, with `m` the
-//!   mean over a square of radius `threshold_radius` (integral image) and
-//!   `delta = min_contrast / 4`.
+//!   mean over a square of radius `threshold_radius` (exact integer box sums of the levels on a
+//!   16-bit scale) and `delta = min_contrast / 4`; the result is kept as horizontal runs.
+//! - Components: 8-connected runs of one ink joined by union-find (the labelling of
+//!   `imageproc::region_labelling` on runs instead of pixels: a component's moments are sums
+//!   over its runs in closed form, and its pixels need not be stored).
 //! - Shape test in whitened coordinates `u = L^-1 (p - mean)` (`L L^T` the component's second
 //!   moments): every point of a uniform ellipse lies within `|u| <= 2`, the corners of a
 //!   parallelogram (an affine square) reach `|u| = sqrt(6) = 2.45`. Round: `max |u| < 2.2`.
@@ -16,12 +19,9 @@
 //!   to each side over its middle 80 %, every half pixel.
 
 use facetcal_model::Ink;
-use image::{GrayImage, Luma};
-use imageproc::region_labelling::{Connectivity, connected_components};
 use nalgebra::{Matrix2, Matrix3, Point2, SymmetricEigen, Vector2, Vector3};
 
 use crate::features::{Dot, Ellipse, Mark, SquareOutline};
-use crate::filter::estimate_noise;
 use crate::image::GreyImage;
 use crate::options::DetectorOptions;
 
@@ -32,7 +32,6 @@ struct Component {
     area: f64,
     mean: Point2<f64>,
     cov: Matrix2<f64>,
-    bbox: [usize; 4],
     label: u32,
 }
 
@@ -44,67 +43,218 @@ pub(crate) struct Blob {
     pub(crate) diameter: f64,
 }
 
-/// Local means over `(2r + 1)^2` squares (clipped at the border), from an `f64` integral image.
-fn local_mean(img: &GreyImage, r: usize) -> Vec<f32> {
-    let (w, h) = (img.width(), img.height());
-    let mut ii = vec![0.0f64; (w + 1) * (h + 1)];
-    let d = img.data();
-    for y in 0..h {
-        let mut row = 0.0;
-        for x in 0..w {
-            row += d[y * w + x] as f64;
-            ii[(y + 1) * (w + 1) + x + 1] = ii[y * (w + 1) + x + 1] + row;
-        }
-    }
-    let mut out = vec![0.0f32; w * h];
-    for y in 0..h {
-        let (y0, y1) = (y.saturating_sub(r), (y + r + 1).min(h));
-        for x in 0..w {
-            let (x0, x1) = (x.saturating_sub(r), (x + r + 1).min(w));
-            let s = ii[y1 * (w + 1) + x1] - ii[y0 * (w + 1) + x1] - ii[y1 * (w + 1) + x0]
-                + ii[y0 * (w + 1) + x0];
-            out[y * w + x] = (s / ((x1 - x0) * (y1 - y0)) as f64) as f32;
-        }
-    }
-    out
+/// A horizontal run of pixels of one ink: `x0..=x1` on row `y`.
+#[derive(Clone, Copy, Debug)]
+struct Run {
+    x0: u32,
+    x1: u32,
+    y: u32,
+    dark: bool,
 }
 
-fn components(mask: &GrayImage, ink: Ink, opts: &DetectorOptions) -> (Vec<Component>, Vec<u32>) {
-    let labels = connected_components(mask, Connectivity::Eight, Luma([0u8]));
-    let (w, h) = (mask.width() as usize, mask.height() as usize);
-    let raw = labels.into_raw();
-    let n = raw.iter().copied().max().unwrap_or(0) as usize;
-    // Sums: count, x, y, xx, xy, yy, bbox, border flag.
-    let mut s = vec![[0.0f64; 6]; n + 1];
-    let mut bb = vec![[usize::MAX, usize::MAX, 0usize, 0usize]; n + 1];
-    let mut border = vec![false; n + 1];
+/// Grey levels on a 16-bit integer scale, for exact box sums (8- and 16-bit input exactly;
+/// values outside `[0, 1]` saturate).
+fn levels16_into(src: &[f32], dst: &mut [u16]) {
+    for (o, &v) in dst.iter_mut().zip(src) {
+        *o = (v * 65535.0 + 0.5).clamp(0.0, 65535.0) as u16;
+    }
+}
+
+/// The thresholded image as runs, in raster order, with the index of each row's first run.
+/// A pixel is dark if `I < m - delta`, light if `I > m + delta`, `m` the mean over the square
+/// of radius `r` clipped at the border, on levels quantised to 16 bits (`delta` too). The box
+/// sums are exact integers from column sums slid down the image and a prefix sum along each
+/// row, so the working set is a few rows (an integral image of the whole picture costs 16
+/// bytes per pixel and a cache miss per lookup) and no division is needed:
+/// `q < S / n - dq` is `q n - S < -dq n` (in `f64`, exact below 2^53).
+fn threshold_runs(img: &GreyImage, r: usize, delta: f64) -> (Vec<Run>, Vec<usize>) {
+    let (w, h) = (img.width(), img.height());
+    let d = img.data();
+    let dq = (delta * 65535.0).round();
+    // Column sums fit in u32: at most 65535 (2 r + 1) with r <= 10000.
+    let mut col = vec![0u32; w];
+    // Quantised rows y0..y1 in a ring (each row converted once).
+    let slots = (2 * r + 2).min(h);
+    let mut ring = vec![0u16; slots * w];
+    let mut prefix = vec![0u64; w + 1];
+    let mut class = vec![0u8; w];
+    let mut runs = Vec::new();
+    let mut row_start = Vec::with_capacity(h + 1);
+    // Column sums over rows y0..y1 (exclusive).
+    let mut y1 = 0usize;
+    let mut y0 = 0usize;
     for y in 0..h {
-        for x in 0..w {
-            let l = raw[y * w + x] as usize;
-            if l == 0 {
-                continue;
-            }
-            let (fx, fy) = (x as f64, y as f64);
-            let t = &mut s[l];
-            t[0] += 1.0;
-            t[1] += fx;
-            t[2] += fy;
-            t[3] += fx * fx;
-            t[4] += fx * fy;
-            t[5] += fy * fy;
-            let b = &mut bb[l];
-            b[0] = b[0].min(x);
-            b[1] = b[1].min(y);
-            b[2] = b[2].max(x);
-            b[3] = b[3].max(y);
-            if x == 0 || y == 0 || x + 1 == w || y + 1 == h {
-                border[l] = true;
+        let (want0, want1) = (y.saturating_sub(r), (y + r + 1).min(h));
+        while y0 < want0 {
+            let q = &ring[(y0 % slots) * w..(y0 % slots + 1) * w];
+            col.iter_mut().zip(q).for_each(|(c, &v)| *c -= v as u32);
+            y0 += 1;
+        }
+        while y1 < want1 {
+            let q = &mut ring[(y1 % slots) * w..(y1 % slots + 1) * w];
+            levels16_into(&d[y1 * w..(y1 + 1) * w], q);
+            col.iter_mut().zip(&*q).for_each(|(c, &v)| *c += v as u32);
+            y1 += 1;
+        }
+        let mut acc = 0u64;
+        for (p, &c) in prefix[1..].iter_mut().zip(&col) {
+            acc += c as u64;
+            *p = acc;
+        }
+        let rows = (y1 - y0) as f64;
+        let q = &ring[(y % slots) * w..(y % slots + 1) * w];
+        // 1 dark, 2 light, 0 neither. Columns whose square is not clipped share one count.
+        let classify = |x: usize, x0: usize, x1: usize| {
+            let n = (x1 - x0) as f64 * rows;
+            let a = q[x] as f64 * n - (prefix[x1] - prefix[x0]) as f64;
+            let t = dq * n;
+            (a < -t) as u8 | (((a > t) as u8) << 1)
+        };
+        let (lo, hi) = (r.min(w), w.saturating_sub(r + 1).max(r.min(w)));
+        for x in (0..lo).chain(hi..w) {
+            class[x] = classify(x, x.saturating_sub(r), (x + r + 1).min(w));
+        }
+        if lo < hi {
+            let n = (2 * r + 1) as f64 * rows;
+            let t = dq * n;
+            let (qs, cs) = (&q[lo..hi], &mut class[lo..hi]);
+            let (pa, pb) = (&prefix[0..hi - lo], &prefix[2 * r + 1..hi + r + 1]);
+            for (((k, &qv), &p0), &p1) in cs.iter_mut().zip(qs).zip(pa).zip(pb) {
+                let a = qv as f64 * n - (p1 - p0) as f64;
+                *k = (a < -t) as u8 | (((a > t) as u8) << 1);
             }
         }
+        row_start.push(runs.len());
+        let mut x = 0usize;
+        while x < w {
+            let c = class[x];
+            if c == 0 {
+                x += 1;
+                continue;
+            }
+            let s = x;
+            while x < w && class[x] == c {
+                x += 1;
+            }
+            runs.push(Run { x0: s as u32, x1: x as u32 - 1, y: y as u32, dark: c == 1 });
+        }
+    }
+    row_start.push(runs.len());
+    (runs, row_start)
+}
+
+fn find(parent: &mut [u32], mut i: u32) -> u32 {
+    while parent[i as usize] != i {
+        let p = parent[i as usize];
+        parent[i as usize] = parent[p as usize];
+        i = p;
+    }
+    i
+}
+
+/// 8-connected components of the runs: for each run, the index of its component. Components
+/// are numbered dark first, then light, each in the raster order of their first pixel.
+fn label_runs(runs: &[Run], row_start: &[usize]) -> (Vec<u32>, usize) {
+    let mut parent: Vec<u32> = (0..runs.len() as u32).collect();
+    for y in 1..row_start.len().saturating_sub(1) {
+        let (pa, pb) = (row_start[y - 1], row_start[y]);
+        let (ca, cb) = (row_start[y], row_start[y + 1]);
+        let mut j = pa;
+        for i in ca..cb {
+            let c = runs[i];
+            // Runs of the previous row touching `c` diagonally or directly: x1 + 1 >= c.x0
+            // and x0 <= c.x1 + 1. The previous row is sorted, so skip those ending too early.
+            while j < pb && runs[j].x1 + 1 < c.x0 {
+                j += 1;
+            }
+            let mut k = j;
+            while k < pb && runs[k].x0 <= c.x1 + 1 {
+                if runs[k].dark == c.dark {
+                    let (a, b) = (find(&mut parent, i as u32), find(&mut parent, k as u32));
+                    // The smaller index (earlier in raster order) becomes the root.
+                    if a != b {
+                        let (lo, hi) = if a < b { (a, b) } else { (b, a) };
+                        parent[hi as usize] = lo;
+                    }
+                }
+                k += 1;
+            }
+        }
+    }
+    // Roots are each component's first run; number dark components, then light ones.
+    let mut id = vec![u32::MAX; runs.len()];
+    let mut n = 0u32;
+    for pass_dark in [true, false] {
+        for i in 0..runs.len() {
+            if runs[i].dark == pass_dark && find(&mut parent, i as u32) == i as u32 {
+                id[i] = n;
+                n += 1;
+            }
+        }
+    }
+    for i in 0..runs.len() {
+        let root = find(&mut parent, i as u32) as usize;
+        id[i] = id[root];
+    }
+    (id, n as usize)
+}
+
+/// Sum of `x` and of `x^2` over the integers `a..=b`.
+fn run_sums(a: u32, b: u32) -> (f64, f64) {
+    let s1 = |n: f64| n * (n + 1.0) / 2.0;
+    let s2 = |n: f64| n * (n + 1.0) * (2.0 * n + 1.0) / 6.0;
+    let (a, b) = (a as f64, b as f64);
+    (s1(b) - s1(a - 1.0), s2(b) - s2(a - 1.0))
+}
+
+/// Moments of every component of acceptable size, and the runs grouped by component.
+struct Components {
+    list: Vec<Component>,
+    /// Runs of component `label`: `order[start[label]..start[label + 1]]`.
+    start: Vec<usize>,
+    order: Vec<u32>,
+}
+
+fn components(img: &GreyImage, opts: &DetectorOptions) -> (Vec<Run>, Components) {
+    let (w, h) = (img.width(), img.height());
+    let (runs, row_start) = threshold_runs(img, opts.threshold_radius, opts.min_contrast / 4.0);
+    let (id, n) = label_runs(&runs, &row_start);
+    drop(row_start);
+    // Sums: count, x, y, xx, xy, yy; border flag; ink.
+    let mut s = vec![[0.0f64; 6]; n];
+    let mut border = vec![false; n];
+    let mut dark = vec![false; n];
+    let mut count = vec![0usize; n + 1];
+    for (r, &l) in runs.iter().zip(&id) {
+        let l = l as usize;
+        let len = (r.x1 - r.x0 + 1) as f64;
+        let (sx, sxx) = run_sums(r.x0, r.x1);
+        let fy = r.y as f64;
+        let t = &mut s[l];
+        t[0] += len;
+        t[1] += sx;
+        t[2] += len * fy;
+        t[3] += sxx;
+        t[4] += sx * fy;
+        t[5] += len * fy * fy;
+        if r.x0 == 0 || r.y == 0 || r.x1 as usize + 1 == w || r.y as usize + 1 == h {
+            border[l] = true;
+        }
+        dark[l] = r.dark;
+        count[l + 1] += 1;
+    }
+    for l in 0..n {
+        count[l + 1] += count[l];
+    }
+    let mut fill = count.clone();
+    let mut order = vec![0u32; runs.len()];
+    for (i, &l) in id.iter().enumerate() {
+        order[fill[l as usize]] = i as u32;
+        fill[l as usize] += 1;
     }
     let max_area = opts.max_blob_fraction * (w * h) as f64;
     let mut out = Vec::new();
-    for l in 1..=n {
+    for l in 0..n {
         let t = s[l];
         if border[l] || t[0] < opts.min_blob_area || t[0] > max_area {
             continue;
@@ -119,27 +269,35 @@ fn components(mask: &GrayImage, ink: Ink, opts: &DetectorOptions) -> (Vec<Compon
             t[5] / t[0] - my * my + 1.0 / 12.0,
         );
         out.push(Component {
-            ink,
+            ink: if dark[l] { Ink::Dark } else { Ink::Light },
             area: t[0],
             mean: Point2::new(mx, my),
             cov,
-            bbox: bb[l],
             label: l as u32,
         });
     }
-    (out, raw)
+    (runs, Components { list: out, start: count, order })
 }
 
-/// Largest whitened radius of a component's pixels.
-fn max_whitened_radius(c: &Component, labels: &[u32], w: usize) -> Option<(f64, Matrix2<f64>)> {
+impl Components {
+    fn runs_of<'a>(&'a self, c: &Component, runs: &'a [Run]) -> impl Iterator<Item = Run> + 'a {
+        let l = c.label as usize;
+        self.order[self.start[l]..self.start[l + 1]].iter().map(move |&i| runs[i as usize])
+    }
+}
+
+/// Largest whitened radius of a component's pixels. Along a row the whitened radius is a
+/// convex function of x, so each run's largest value is at one of its ends.
+fn max_whitened_radius(
+    c: &Component,
+    runs: impl Iterator<Item = Run>,
+) -> Option<(f64, Matrix2<f64>)> {
     let inv = c.cov.try_inverse()?;
     let mut m: f64 = 0.0;
-    for y in c.bbox[1]..=c.bbox[3] {
-        for x in c.bbox[0]..=c.bbox[2] {
-            if labels[y * w + x] == c.label {
-                let d = Vector2::new(x as f64 - c.mean.x, y as f64 - c.mean.y);
-                m = m.max(d.dot(&(inv * d)));
-            }
+    for r in runs {
+        for x in [r.x0, r.x1] {
+            let d = Vector2::new(x as f64 - c.mean.x, r.y as f64 - c.mean.y);
+            m = m.max(d.dot(&(inv * d)));
         }
     }
     Some((m.sqrt(), inv))
@@ -325,20 +483,18 @@ fn intersect(
 fn measure_square(
     img: &GreyImage,
     c: &Component,
-    labels: &[u32],
+    runs: impl Iterator<Item = Run>,
     inv: &Matrix2<f64>,
 ) -> Option<SquareOutline> {
-    let w = img.width();
     // Coarse corners: the farthest pixels in whitened space, one per quadrant of angle around
     // the farthest one.
     let mut pts: Vec<(f64, f64, Point2<f64>)> = Vec::new();
-    for y in c.bbox[1]..=c.bbox[3] {
-        for x in c.bbox[0]..=c.bbox[2] {
-            if labels[y * w + x] == c.label {
-                let d = Vector2::new(x as f64 - c.mean.x, y as f64 - c.mean.y);
-                let r = d.dot(&(inv * d));
-                pts.push((r, d.y.atan2(d.x), Point2::new(x as f64, y as f64)));
-            }
+    for run in runs {
+        let y = run.y as usize;
+        for x in run.x0 as usize..=run.x1 as usize {
+            let d = Vector2::new(x as f64 - c.mean.x, y as f64 - c.mean.y);
+            let r = d.dot(&(inv * d));
+            pts.push((r, d.y.atan2(d.x), Point2::new(x as f64, y as f64)));
         }
     }
     let first = pts.iter().max_by(|a, b| a.0.total_cmp(&b.0))?.1;
@@ -429,44 +585,29 @@ fn measure_square(
     Some(SquareOutline { corners, sigma: 0.0 })
 }
 
-/// Round blobs (both inks) and square outlines.
+/// Round blobs (both inks) and square outlines; `noise` is the image noise (normalised grey).
 pub(crate) fn detect_blobs(
     img: &GreyImage,
     opts: &DetectorOptions,
     want_squares: bool,
+    noise: f64,
 ) -> (Vec<Blob>, Vec<SquareOutline>) {
     let (w, h) = (img.width(), img.height());
     if w < 8 || h < 8 {
         return (Vec::new(), Vec::new());
     }
-    let mean = local_mean(img, opts.threshold_radius);
-    let delta = (opts.min_contrast / 4.0) as f32;
-    let noise = estimate_noise(img);
-    let mut dark = GrayImage::new(w as u32, h as u32);
-    let mut light = GrayImage::new(w as u32, h as u32);
-    for (i, (&v, &m)) in img.data().iter().zip(&mean).enumerate() {
-        if v < m - delta {
-            dark.as_mut()[i] = 255;
-        } else if v > m + delta {
-            light.as_mut()[i] = 255;
-        }
-    }
-    drop(mean);
+    let (runs, comps) = components(img, opts);
     let mut blobs = Vec::new();
     let mut squares = Vec::new();
-    for (mask, ink) in [(&dark, Ink::Dark), (&light, Ink::Light)] {
-        let (comps, labels) = components(mask, ink, opts);
-        for c in &comps {
-            let Some((r, inv)) = max_whitened_radius(c, &labels, w) else { continue };
-            if r < 2.2 {
-                if let Some(b) = measure_dot(img, c, noise) {
-                    blobs.push(b);
-                }
-            } else if want_squares && ink == Ink::Dark && r < 3.0 && c.area >= 16.0 {
-                if let Some(mut s) = measure_square(img, c, &labels, &inv) {
-                    s.sigma = noise * 0.0;
-                    squares.push(s);
-                }
+    for c in &comps.list {
+        let Some((r, inv)) = max_whitened_radius(c, comps.runs_of(c, &runs)) else { continue };
+        if r < 2.2 {
+            if let Some(b) = measure_dot(img, c, noise) {
+                blobs.push(b);
+            }
+        } else if want_squares && c.ink == Ink::Dark && r < 3.0 && c.area >= 16.0 {
+            if let Some(s) = measure_square(img, c, comps.runs_of(c, &runs), &inv) {
+                squares.push(s);
             }
         }
     }

@@ -23,7 +23,7 @@
 use nalgebra::{Matrix2, Point2, Vector2};
 
 use crate::features::CheckerCorner;
-use crate::filter::{estimate_noise, gaussian_blur_into, gaussian_kernel};
+use crate::filter::{RowSmoother, estimate_noise, gaussian_kernel};
 use crate::image::GreyImage;
 use crate::options::DetectorOptions;
 
@@ -31,12 +31,53 @@ const RING_SAMPLES: usize = 16;
 /// Largest difference of the mean levels of opposite ring sectors, over the amplitude.
 const MAX_SECTOR_MISMATCH: f64 = 0.25;
 
-/// Working buffers of the checker path, reusable across images of the same size.
+/// Working buffers of the checker path, reusable across images. Every buffer holds a few rows,
+/// never a whole image.
 #[derive(Default)]
 pub struct CheckerWorkspace {
-    smooth: GreyImage,
-    response: Vec<f32>,
-    scratch: Vec<f32>,
+    ring: Vec<f32>,
+    rows: Vec<f32>,
+    patch: Vec<f32>,
+}
+
+/// Half-size of the smoothed patch around a candidate: the rings (outer radius at most
+/// `ring_radius`, around points up to 1.5 px from the candidate) and their bilinear neighbours.
+fn patch_reach(ring_radius: f64) -> isize {
+    (ring_radius + 1.5 + 2.0).ceil() as isize
+}
+
+/// The smoothed image seen through the ring of rows the scan keeps: rows within the patch
+/// reach of the candidate being tested are present.
+struct Patch<'a> {
+    ring: &'a [f32],
+    slots: usize,
+    w: usize,
+    h: usize,
+}
+
+impl Patch<'_> {
+    /// The value at the nearest pixel inside the image, as [`GreyImage::at_clamped`].
+    fn at_clamped(&self, x: isize, y: isize) -> f32 {
+        let xc = x.clamp(0, self.w as isize - 1) as usize;
+        let yc = y.clamp(0, self.h as isize - 1) as usize;
+        self.ring[(yc % self.slots) * self.w + xc]
+    }
+
+    /// Bilinear interpolation, as [`GreyImage::sample`].
+    fn sample(&self, x: f64, y: f64) -> f64 {
+        if !(x.is_finite() && y.is_finite()) {
+            return 0.0;
+        }
+        let x0 = x.floor();
+        let y0 = y.floor();
+        let (fx, fy) = (x - x0, y - y0);
+        let (xi, yi) = (x0.clamp(-2.0, 1e9) as isize, y0.clamp(-2.0, 1e9) as isize);
+        let a = self.at_clamped(xi, yi) as f64;
+        let b = self.at_clamped(xi + 1, yi) as f64;
+        let c = self.at_clamped(xi, yi + 1) as f64;
+        let d = self.at_clamped(xi + 1, yi + 1) as f64;
+        (a * (1.0 - fx) + b * fx) * (1.0 - fy) + (c * (1.0 - fx) + d * fx) * fy
+    }
 }
 
 /// What the ring test learns about a junction.
@@ -53,7 +94,7 @@ struct Ring {
     sector_mismatch: f64,
 }
 
-fn ring(img: &GreyImage, c: Point2<f64>, r: f64) -> Option<Ring> {
+fn ring(img: &Patch, c: Point2<f64>, r: f64) -> Option<Ring> {
     let mut v = [0.0f64; RING_SAMPLES];
     let step = std::f64::consts::TAU / RING_SAMPLES as f64;
     for (k, s) in v.iter_mut().enumerate() {
@@ -293,13 +334,21 @@ pub fn detect_checker_corners_with(
     opts: &DetectorOptions,
     ws: &mut CheckerWorkspace,
 ) -> Vec<CheckerCorner> {
+    detect_with_noise(img, opts, ws, estimate_noise(img))
+}
+
+/// The checker path with the image noise `sn` (normalised grey) already measured.
+pub(crate) fn detect_with_noise(
+    img: &GreyImage,
+    opts: &DetectorOptions,
+    ws: &mut CheckerWorkspace,
+    sn: f64,
+) -> Vec<CheckerCorner> {
     let (w, h) = (img.width(), img.height());
     if w < 5 || h < 5 {
         return Vec::new();
     }
     let sd = opts.checker_smoothing;
-    gaussian_blur_into(img, sd, &mut ws.scratch, &mut ws.smooth);
-    let s = ws.smooth.data();
 
     // Threshold. Contrast part: a right-angle junction of contrast C blurred to total standard
     // deviation st has sxy = C / (pi st^2) at its centre; we accept down to min_contrast with a
@@ -307,9 +356,7 @@ pub fn detect_checker_corners_with(
     let st2 = sd * sd + 2.5 * 2.5;
     let r_contrast = 0.5 * (opts.min_contrast / (std::f64::consts::PI * st2)).powi(2);
     // Noise part: the standard deviations of sxy and sxx for white noise of deviation sn.
-    let sn = estimate_noise(img);
     let k = gaussian_kernel(sd);
-    let kr = k.len() / 2;
     let d1: Vec<f64> = (0..k.len())
         .map(|i| {
             let a = if i + 1 < k.len() { k[i + 1] } else { 0.0 } as f64;
@@ -324,7 +371,6 @@ pub fn detect_checker_corners_with(
             a + b - 2.0 * k[i] as f64
         })
         .collect();
-    let _ = kr;
     let e_d1: f64 = d1.iter().map(|v| v * v).sum();
     let e_d2: f64 = d2.iter().map(|v| v * v).sum();
     let e_g: f64 = k.iter().map(|&v| (v as f64) * (v as f64)).sum();
@@ -333,97 +379,61 @@ pub fn detect_checker_corners_with(
     let r_noise = opts.noise_factor * opts.noise_factor * (var_xy + var_xx);
     let thr = r_contrast.max(r_noise) as f32;
 
-    // Response, border pixels left at zero.
-    ws.response.clear();
-    ws.response.resize(w * h, 0.0);
-    for y in 1..h - 1 {
-        let (a, b, c) =
-            (&s[(y - 1) * w..y * w], &s[y * w..(y + 1) * w], &s[(y + 1) * w..(y + 2) * w]);
-        let out = &mut ws.response[y * w..(y + 1) * w];
-        for x in 1..w - 1 {
-            let sxx = b[x + 1] - 2.0 * b[x] + b[x - 1];
-            let syy = c[x] - 2.0 * b[x] + a[x];
-            let sxy = 0.25 * (c[x + 1] - c[x - 1] - a[x + 1] + a[x - 1]);
-            out[x] = sxy * sxy - sxx * syy;
-        }
-    }
-
-    // Non-maximum suppression on 3 x 3, ties broken towards the first in raster order.
-    let resp = &ws.response;
-    let mut cands: Vec<(usize, usize)> = Vec::new();
-    for y in 1..h - 1 {
-        let row = &resp[y * w..(y + 1) * w];
-        for x in 1..w - 1 {
-            let v = row[x];
-            if v <= thr {
-                continue;
-            }
-            let up = &resp[(y - 1) * w..y * w];
-            let dn = &resp[(y + 1) * w..(y + 2) * w];
-            if v > up[x - 1]
-                && v > up[x]
-                && v > up[x + 1]
-                && v > row[x - 1]
-                && v >= row[x + 1]
-                && v >= dn[x - 1]
-                && v >= dn[x]
-                && v >= dn[x + 1]
-            {
-                cands.push((x, y));
-            }
-        }
-    }
-    if cands.len() > opts.max_candidates {
-        // Keep the strongest, deterministically (ties by raster order).
-        cands.sort_by(|a, b| resp[b.1 * w + b.0].total_cmp(&resp[a.1 * w + a.0]).then(a.cmp(b)));
-        cands.truncate(opts.max_candidates);
-        cands.sort_by_key(|&(x, y)| (y, x));
-    }
-
-    let smooth = &ws.smooth;
     let rr = opts.ring_radius;
-    let mut out: Vec<CheckerCorner> = Vec::new();
-    for &(x, y) in &cands {
+    let mut test = |smooth: &Patch, x: usize, y: usize| {
         let p = Point2::new(x as f64, y as f64);
         // Near the border the rings shrink so that features 3 px inside are still found.
         let border = (x as f64).min(y as f64).min((w - 1 - x) as f64).min((h - 1 - y) as f64);
         let r_outer = rr.min(border - 0.5);
         if r_outer < 2.0 {
-            continue;
+            return None;
         }
-        let Some(pre) = ring(smooth, p, r_outer) else { continue };
+        let pre = ring(smooth, p, r_outer)?;
         if pre.amplitude < 0.5 * opts.min_contrast {
-            continue;
+            return None;
         }
-        let Some((c, cov, balance)) = refine(img, p, opts.refine_sigma, 1.5, sn) else {
-            continue;
-        };
+        let (c, cov, balance) = refine(img, p, opts.refine_sigma, 1.5, sn)?;
         // A face-code mark next to a cell edge makes a saddle too (the dark strip between them),
         // but a strongly unbalanced one.
         if balance < opts.min_saddle_balance {
-            continue;
+            return None;
         }
-        let Some(r1) = ring(smooth, c, r_outer) else { continue };
-        let Some(r2) = ring(smooth, c, 0.6 * r_outer) else { continue };
+        let r1 = ring(smooth, c, r_outer)?;
+        let r2 = ring(smooth, c, 0.6 * r_outer)?;
         if r1.asymmetry > opts.max_asymmetry || r2.asymmetry > opts.max_asymmetry {
-            continue;
+            return None;
         }
         // Crossing edges of unrelated objects (overlapping clutter) make four sectors of four
         // different levels; a checker corner has two levels.
         if r1.sector_mismatch > MAX_SECTOR_MISMATCH || r2.sector_mismatch > MAX_SECTOR_MISMATCH {
-            continue;
+            return None;
         }
         // The ring's light-minus-dark mean is about 0.8 of the contrast for a sharp corner.
         if r1.amplitude < 0.75 * opts.min_contrast {
-            continue;
+            return None;
         }
         let sigma = (0.5 * (cov[(0, 0)] + cov[(1, 1)])).max(0.0).sqrt();
-        out.push(CheckerCorner {
+        Some(CheckerCorner {
             position: c,
             sigma: if sigma.is_finite() { sigma } else { f64::MAX },
             strength: r1.amplitude,
             edges: edges_from_ring(&r1),
-        });
+        })
+    };
+    let mut cands = Vec::new();
+    let mut out: Vec<CheckerCorner> = Vec::new();
+    let done =
+        scan(img, sd, thr, rr, ws, None, opts.max_candidates, &mut cands, &mut test, &mut out);
+    if !done {
+        // Too many candidates: keep the strongest, deterministically (ties by raster order),
+        // and test them in a second scan.
+        cands.sort_by(|a, b| b.2.total_cmp(&a.2).then((a.1, a.0).cmp(&(b.1, b.0))));
+        cands.truncate(opts.max_candidates);
+        cands.sort_by_key(|&(x, y, _)| (y, x));
+        let chosen: Vec<(usize, usize)> = cands.iter().map(|&(x, y, _)| (x, y)).collect();
+        out.clear();
+        let mut unused = Vec::new();
+        scan(img, sd, thr, rr, ws, Some(&chosen), usize::MAX, &mut unused, &mut test, &mut out);
     }
     // Two candidates that converged to one junction: keep the stronger.
     out.sort_by(|a, b| {
@@ -443,6 +453,115 @@ pub fn detect_checker_corners_with(
         a.position.y.total_cmp(&b.position.y).then(a.position.x.total_cmp(&b.position.x))
     });
     kept
+}
+
+/// One pass down the image. Smoothed rows go into a ring of `2 reach + 2` rows; each row's saddle
+/// response (border pixels zero) into a ring of 3; the row between is suppressed to its 3 x 3
+/// maxima above `thr` (ties broken towards the first in raster order), which are appended to
+/// `cands` with their response. Each candidate is handed to `test` as soon as the smoothed rows
+/// within its patch reach exist, in raster order. With `only`, the listed pixels (raster
+/// order) are tested instead of the maxima. Returns false, having stopped testing, when the
+/// maxima outnumber `limit`; `cands` then holds all of them.
+#[allow(clippy::too_many_arguments)]
+fn scan(
+    img: &GreyImage,
+    sigma: f64,
+    thr: f32,
+    ring_radius: f64,
+    ws: &mut CheckerWorkspace,
+    only: Option<&[(usize, usize)]>,
+    limit: usize,
+    cands: &mut Vec<(usize, usize, f32)>,
+    test: &mut dyn FnMut(&Patch, usize, usize) -> Option<CheckerCorner>,
+    found: &mut Vec<CheckerCorner>,
+) -> bool {
+    let (w, h) = (img.width(), img.height());
+    let reach = patch_reach(ring_radius) as usize;
+    let slots = 2 * reach + 2;
+    let mut sm = RowSmoother::new(img, sigma, std::mem::take(&mut ws.ring));
+    let mut srows = std::mem::take(&mut ws.rows);
+    srows.clear();
+    srows.resize(slots * w, 0.0);
+    let mut rrows = std::mem::take(&mut ws.patch);
+    rrows.clear();
+    rrows.resize(3 * w, 0.0);
+    let mut within = true;
+    // Next candidate to test: an index into `cands` or into `only`.
+    let mut next = 0usize;
+    for yn in 0..h {
+        let slot = yn % slots;
+        sm.row_into(yn, &mut srows[slot * w..(slot + 1) * w]);
+        if only.is_none() && yn >= 2 {
+            let y = yn - 1;
+            let row = |r: usize| &srows[(r % slots) * w..(r % slots + 1) * w];
+            let (a, b, c) = (row(y - 1), row(y), row(y + 1));
+            let out = &mut rrows[(y % 3) * w..(y % 3 + 1) * w];
+            out[0] = 0.0;
+            out[w - 1] = 0.0;
+            for x in 1..w - 1 {
+                let sxx = b[x + 1] - 2.0 * b[x] + b[x - 1];
+                let syy = c[x] - 2.0 * b[x] + a[x];
+                let sxy = 0.25 * (c[x + 1] - c[x - 1] - a[x + 1] + a[x - 1]);
+                out[x] = sxy * sxy - sxx * syy;
+            }
+            if yn >= 3 {
+                suppress(&rrows, w, yn - 2, thr, cands);
+            }
+            if yn + 1 == h {
+                // The last row is border: zero response.
+                rrows[((h - 1) % 3) * w..((h - 1) % 3 + 1) * w].iter_mut().for_each(|v| *v = 0.0);
+                suppress(&rrows, w, h - 2, thr, cands);
+            }
+        }
+        // Test the candidates whose patch rows now all exist.
+        let ready = |yc: usize| yc + reach <= yn || yn + 1 == h;
+        match only {
+            None => {
+                if cands.len() > limit {
+                    within = false;
+                }
+                while within && next < cands.len() && ready(cands[next].1) {
+                    let (x, y, _) = cands[next];
+                    found.extend(test(&Patch { ring: &srows, slots, w, h }, x, y));
+                    next += 1;
+                }
+            }
+            Some(list) => {
+                while next < list.len() && ready(list[next].1) {
+                    let (x, y) = list[next];
+                    found.extend(test(&Patch { ring: &srows, slots, w, h }, x, y));
+                    next += 1;
+                }
+            }
+        }
+    }
+    ws.ring = sm.into_storage();
+    ws.rows = srows;
+    ws.patch = rrows;
+    within
+}
+
+/// The 3 x 3 maxima above `thr` of response row `yc`, from the ring of 3 response rows.
+fn suppress(rrows: &[f32], w: usize, yc: usize, thr: f32, cands: &mut Vec<(usize, usize, f32)>) {
+    let row_of = |r: usize| &rrows[(r % 3) * w..(r % 3 + 1) * w];
+    let (up, row, dn) = (row_of(yc - 1), row_of(yc), row_of(yc + 1));
+    for x in 1..w - 1 {
+        let v = row[x];
+        if v <= thr {
+            continue;
+        }
+        if v > up[x - 1]
+            && v > up[x]
+            && v > up[x + 1]
+            && v > row[x - 1]
+            && v >= row[x + 1]
+            && v >= dn[x - 1]
+            && v >= dn[x]
+            && v >= dn[x + 1]
+        {
+            cands.push((x, yc, v));
+        }
+    }
 }
 
 /// Detects checker X-junctions with fresh buffers.

@@ -40,14 +40,15 @@ pub fn detect(img: &GreyImage, opts: &DetectorOptions) -> Result<Detections, Det
         return Err(DetectError::TooLarge { width: w, height: h, limit: opts.max_pixels });
     }
     let mut out = Detections { width: w as u32, height: h as u32, ..Default::default() };
+    let noise = filter::estimate_noise(img);
     if opts.wants(PatternKind::Checkerboard) {
-        out.checker_corners = checker::detect_checker_corners(img, opts);
+        out.checker_corners = checker::detect_with_noise(img, opts, &mut Default::default(), noise);
     }
     // Blobs: dots, squares and every kind's marks. A round blob is a mark when it lies inside
     // a square, within 2.5 diameters of a checker corner (a cell-centre disc), or among
     // neighbours of its ink at least 1.8 times its diameter (a dot grid's gap mark).
     let want_squares = opts.wants(PatternKind::SquareGrid);
-    let (blobs, squares) = blobs::detect_blobs(img, opts, want_squares);
+    let (blobs, squares) = blobs::detect_blobs(img, opts, want_squares, noise);
     let corners: Vec<_> = out.checker_corners.iter().map(|c| c.position).collect();
     let (dots, marks) = blobs::classify(blobs, &squares, &corners);
     if opts.wants(PatternKind::DotGrid) {
