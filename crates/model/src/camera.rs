@@ -28,7 +28,7 @@ use nalgebra::{Matrix2, Matrix2x3, Matrix3, Point2, Point3, SMatrix, Vector2, Ve
 use serde::{Deserialize, Serialize};
 
 use crate::error::ModelError;
-use crate::geometry::{Pose, cross_matrix};
+use crate::geometry::Pose;
 
 /// The largest number of camera parameters of any model (5 intrinsics + 5 Brown-Conrady terms).
 pub const MAX_CAMERA_PARAMS: usize = 10;
@@ -251,6 +251,55 @@ impl Distortion {
 
     fn needs_positive_depth(&self) -> bool {
         !matches!(self, Distortion::KannalaBrandt { .. })
+    }
+
+    /// [`Self::apply`] and [`Self::jacobian`] together, sharing the divisions by `Z` (the
+    /// projection hot path). Brown-Conrady evaluates the same expressions as the two
+    /// separately, so the results are identical.
+    #[inline]
+    fn apply_with_jacobian(&self, p: &Point3<f64>) -> (Vector2<f64>, DistortionJacobian) {
+        match *self {
+            Distortion::BrownConrady { k1, k2, p1, p2, k3 } => {
+                let iz = 1.0 / p.z;
+                let x = p.x / p.z;
+                let y = p.y / p.z;
+                let r2 = x * x + y * y;
+                let a = 1.0 + r2 * (k1 + r2 * (k2 + r2 * k3));
+                let d = Vector2::new(
+                    x * a + 2.0 * p1 * x * y + p2 * (r2 + 2.0 * x * x),
+                    y * a + p1 * (r2 + 2.0 * y * y) + 2.0 * p2 * x * y,
+                );
+                let da = k1 + r2 * (2.0 * k2 + r2 * 3.0 * k3);
+                let dxd_dx = a + 2.0 * x * x * da + 2.0 * p1 * y + 6.0 * p2 * x;
+                let dxd_dy = 2.0 * x * y * da + 2.0 * p1 * x + 2.0 * p2 * y;
+                let dyd_dy = a + 2.0 * y * y * da + 6.0 * p1 * y + 2.0 * p2 * x;
+                let r4 = r2 * r2;
+                let d_coeffs = SMatrix::<f64, 2, 5>::new(
+                    x * r2,
+                    x * r4,
+                    2.0 * x * y,
+                    r2 + 2.0 * x * x,
+                    x * r4 * r2,
+                    y * r2,
+                    y * r4,
+                    r2 + 2.0 * y * y,
+                    2.0 * x * y,
+                    y * r4 * r2,
+                );
+                // d_xy times the pinhole Jacobian [[1/Z, 0, -X/Z^2], [0, 1/Z, -Y/Z^2]].
+                let (gx, gy) = (-p.x * iz * iz, -p.y * iz * iz);
+                let d_point = Matrix2x3::new(
+                    dxd_dx * iz,
+                    dxd_dy * iz,
+                    dxd_dx * gx + dxd_dy * gy,
+                    dxd_dy * iz,
+                    dyd_dy * iz,
+                    dxd_dy * gx + dyd_dy * gy,
+                );
+                (d, DistortionJacobian { d_point, d_coeffs })
+            }
+            _ => (self.apply(p), self.jacobian(p)),
+        }
     }
 
     fn jacobian(&self, p: &Point3<f64>) -> DistortionJacobian {
@@ -554,6 +603,7 @@ impl Camera {
             && p.y <= self.height as f64 - 0.5 + margin
     }
 
+    #[inline]
     fn check_domain(&self, p: &Point3<f64>) -> Result<(), ModelError> {
         if !(p.x.is_finite() && p.y.is_finite() && p.z.is_finite()) {
             return Err(ModelError::OutsideDomain("point is not finite".into()));
@@ -567,10 +617,10 @@ impl Camera {
         if !self.distortion.needs_positive_depth() && p.coords.norm() == 0.0 {
             return Err(ModelError::OutsideDomain("point is at the centre of projection".into()));
         }
-        let c = self.distortion.domain_coordinate(p);
         // A cheap test of the local slope: beyond the first turning point the slope is negative
         // for every model here until the next root, so this catches the fold.
-        if c > 0.0 && !self.locally_increasing(c) {
+        if !self.inside_fold(p) {
+            let c = self.distortion.domain_coordinate(p);
             return Err(ModelError::OutsideDomain(format!(
                 "point lies beyond the distortion model's valid domain (radial coordinate {c:.4})"
             )));
@@ -578,16 +628,24 @@ impl Camera {
         Ok(())
     }
 
-    fn locally_increasing(&self, c: f64) -> bool {
-        let s = c * c;
+    /// Whether the radial mapping is still increasing at the point's domain coordinate `c`
+    /// (see [`Distortion::domain_coordinate`]); true at `c = 0`. Brown-Conrady needs only
+    /// `c^2 = (X^2 + Y^2) / Z^2`, so the hot path takes no square root.
+    #[inline]
+    fn inside_fold(&self, p: &Point3<f64>) -> bool {
         match self.distortion {
             Distortion::None => true,
             Distortion::BrownConrady { k1, k2, k3, .. } => {
-                1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * 7.0 * k3)) > 0.0
+                let s = (p.x * p.x + p.y * p.y) / (p.z * p.z);
+                s == 0.0 || 1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * 7.0 * k3)) > 0.0
             }
             Distortion::KannalaBrandt { k1, k2, k3, k4 } => {
-                c < std::f64::consts::PI
-                    && 1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * (7.0 * k3 + s * 9.0 * k4))) > 0.0
+                let c = self.distortion.domain_coordinate(p);
+                let s = c * c;
+                c == 0.0
+                    || (c < std::f64::consts::PI
+                        && 1.0 + s * (3.0 * k1 + s * (5.0 * k2 + s * (7.0 * k3 + s * 9.0 * k4)))
+                            > 0.0)
             }
         }
     }
@@ -603,10 +661,10 @@ impl Camera {
 
     /// Projects a camera-frame point with the Jacobians with respect to the point and to the
     /// camera parameters.
+    #[inline]
     pub fn project_with_jacobians(&self, p: &Point3<f64>) -> Result<Projection, ModelError> {
         self.check_domain(p)?;
-        let d = self.distortion.apply(p);
-        let dj = self.distortion.jacobian(p);
+        let (d, dj) = self.distortion.apply_with_jacobian(p);
         let i = &self.intrinsics;
         // d(u, v) / d(xd, yd)
         let dk = Matrix2::new(i.fx, i.skew, 0.0, i.fy);
@@ -627,6 +685,7 @@ impl Camera {
     /// Projects a target-frame point seen from a view pose (target to camera), with the
     /// Jacobians with respect to the camera parameters, the pose increment of
     /// [`Pose::perturbed`] and the target point.
+    #[inline]
     pub fn project_posed(
         &self,
         pose: &Pose,
@@ -635,11 +694,19 @@ impl Camera {
         let rx = pose.rotation * target_point.coords;
         let pc = Point3::from(rx + pose.translation);
         let pr = self.project_with_jacobians(&pc)?;
-        // d pc / d omega = -[R X]x for the left increment, d pc / d t = I.
-        let d_omega = pr.d_point * (-cross_matrix(&rx));
+        // d pc / d omega = -[R X]x for the left increment, d pc / d t = I; written out, as
+        // this runs once per point and iteration: row j of J times -[v]x is v x j.
+        let j = &pr.d_point;
         let mut d_pose = SMatrix::<f64, 2, 6>::zeros();
-        d_pose.fixed_columns_mut::<3>(0).copy_from(&d_omega);
-        d_pose.fixed_columns_mut::<3>(3).copy_from(&pr.d_point);
+        for r in 0..2 {
+            let (a, b, c) = (j[(r, 0)], j[(r, 1)], j[(r, 2)]);
+            d_pose[(r, 0)] = c * rx.y - b * rx.z;
+            d_pose[(r, 1)] = a * rx.z - c * rx.x;
+            d_pose[(r, 2)] = b * rx.x - a * rx.y;
+            d_pose[(r, 3)] = a;
+            d_pose[(r, 4)] = b;
+            d_pose[(r, 5)] = c;
+        }
         Ok(PoseProjection {
             pixel: pr.pixel,
             d_params: pr.d_params,

@@ -88,8 +88,17 @@ pub fn normalising_transform_3d(points: &[Point3<f64>]) -> Matrix4<f64> {
 /// value, with the singular values (descending).
 pub fn smallest_right_singular_vector(a: DMatrix<f64>) -> Option<(Vec<f64>, Vec<f64>)> {
     let n = a.ncols();
-    // A tall A has a full n x n V^T; pad a short one with zero rows so that it does too.
-    let a = if a.nrows() < n { a.resize_vertically(n, 0.0) } else { a };
+    // A tall A is first reduced to the n x n triangle R of A = QR (Householder, backward
+    // stable): R has A's singular values and right singular vectors, and its SVD is cheap
+    // (the "R-SVD" of Golub and Van Loan, "Matrix Computations", section 5.4, cited from
+    // memory). A short A is padded with zero rows so that V^T is n x n.
+    let a = if a.nrows() > n {
+        a.qr().r()
+    } else if a.nrows() < n {
+        a.resize_vertically(n, 0.0)
+    } else {
+        a
+    };
     let svd = a.try_svd(false, true, f64::EPSILON, 0)?;
     let vt = svd.v_t?;
     let mut order: Vec<usize> = (0..n).collect();

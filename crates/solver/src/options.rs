@@ -80,8 +80,9 @@ pub struct Options {
     pub min_points_per_view: usize,
     /// Stop after this many iterations in one minimisation (default 200).
     pub max_iterations: usize,
-    /// Function test, after an accepted step: `cost - new_cost <= function_tolerance * cost`
-    /// (default 1e-12).
+    /// Function test, after an accepted step: `cost - new_cost <= function_tolerance * cost`;
+    /// after a rejected one: `|cost - new_cost| <= function_tolerance * cost` (the step
+    /// changes the cost by rounding only; the state stays where it was). Default 1e-12.
     pub function_tolerance: f64,
     /// Step test: `|delta| <= parameter_tolerance * (|x| + parameter_tolerance)`, over all free
     /// parameters, poses as axis-angle and translation (default 1e-12).

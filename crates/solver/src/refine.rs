@@ -103,18 +103,42 @@ fn view_cost(state: &State, v: usize, view: &ViewData, loss: &Loss) -> f64 {
     cost
 }
 
+/// Adds `p p^T + q q^T` to the upper triangle of the `m x m` row-major `h` and
+/// `p r0 + q r1` to `grad`, `m = p.len()`. Contiguous slices, so the inner loop vectorises.
+#[inline]
+fn add_rank2(h: &mut [f64], grad: &mut [f64], p: &[f64], q: &[f64], r0: f64, r1: f64) {
+    let m = p.len();
+    for a in 0..m {
+        let (pa, qa) = (p[a], q[a]);
+        grad[a] += pa * r0 + qa * r1;
+        let row = &mut h[a * m + a..(a + 1) * m];
+        for ((hv, &pb), &qb) in row.iter_mut().zip(&p[a..]).zip(&q[a..]) {
+            *hv += pa * pb + qa * qb;
+        }
+    }
+}
+
 fn view_block(state: &State, layout: &Layout, v: usize, view: &ViewData, loss: &Loss) -> ViewBlock {
     let ng = layout.n_global();
     let nc = layout.cam_columns.len();
-    let rows = 2 * view.inliers();
-    // The view's weighted Jacobian sqrt(w) J and residual sqrt(w) r, then the products by
-    // matrix multiplication (this view only; the whole problem's Jacobian is never formed).
-    let mut jg = DMatrix::zeros(rows, ng);
-    let mut jp = DMatrix::<f64>::zeros(rows, 6);
-    let mut rr = DVector::zeros(rows);
+    // Unknowns of this view: the shared ones, then its pose. A point touches the camera
+    // columns, the pose and at most one face, so its two weighted Jacobian rows sqrt(w) J are
+    // kept compact and their products added to [Jg Jp]^T W [Jg Jp] and [Jg Jp]^T W r point by
+    // point; the view's Jacobian is never formed. Points of the reference face touch
+    // `[camera, pose]` only and go to the dense `m x m` `hl`; points with a face correction
+    // also touch that face's 6 columns and go to the full `n x n` `h` through `idx`.
+    // Both are upper triangles.
+    let n = ng + 6;
+    let m = nc + 6;
+    let mut hl = vec![0.0; m * m];
+    let mut gl = vec![0.0; m];
+    let mut h = vec![0.0; if layout.faces > 0 { n * n } else { 0 }];
+    let mut grad = vec![0.0; n];
+    let mut j0 = vec![0.0; m + 6];
+    let mut j1 = vec![0.0; m + 6];
+    let mut idx: Vec<usize> = (0..m + 6).collect();
     let mut cost = 0.0;
     let pose = &state.poses[v];
-    let mut row = 0;
     for k in 0..view.targets.len() {
         if !view.inlier[k] {
             continue;
@@ -129,39 +153,78 @@ fn view_block(state: &State, layout: &Layout, v: usize, view: &ViewData, loss: &
         cost += 0.5 * rho;
         let sw = weight.sqrt();
         for (c, col) in layout.cam_columns.iter().enumerate() {
-            for &(idx, coef) in col {
-                jg[(row, c)] += sw * coef * pr.d_params[(0, idx)];
-                jg[(row + 1, c)] += sw * coef * pr.d_params[(1, idx)];
+            let (mut a, mut b) = (0.0, 0.0);
+            for &(i, coef) in col {
+                a += coef * pr.d_params[(0, i)];
+                b += coef * pr.d_params[(1, i)];
             }
+            j0[c] = sw * a;
+            j1[c] = sw * b;
         }
-        if let Some(f) = view.face_slot[k] {
-            // X' = exp([w]x) R_f X + t_f + dt: dX'/dw = -[R_f X]x, dX'/ddt = I.
-            let rx = state.faces[f].rotation * view.targets[k].coords;
-            let d_w = pr.d_target_point * (-cross_matrix(&rx));
-            for i in 0..2 {
+        let (r0, r1) = (sw * r.x, sw * r.y);
+        match view.face_slot[k] {
+            None => {
+                for j in 0..6 {
+                    j0[nc + j] = sw * pr.d_pose[(0, j)];
+                    j1[nc + j] = sw * pr.d_pose[(1, j)];
+                }
+                add_rank2(&mut hl, &mut gl, &j0[..m], &j1[..m], r0, r1);
+            }
+            Some(f) => {
+                // X' = exp([w]x) R_f X + t_f + dt: dX'/dw = -[R_f X]x, dX'/ddt = I.
+                let rx = state.faces[f].rotation * view.targets[k].coords;
+                let d_w = pr.d_target_point * (-cross_matrix(&rx));
                 for j in 0..3 {
-                    jg[(row + i, nc + 6 * f + j)] = sw * d_w[(i, j)];
-                    jg[(row + i, nc + 6 * f + 3 + j)] = sw * pr.d_target_point[(i, j)];
+                    j0[nc + j] = sw * d_w[(0, j)];
+                    j1[nc + j] = sw * d_w[(1, j)];
+                    j0[nc + 3 + j] = sw * pr.d_target_point[(0, j)];
+                    j1[nc + 3 + j] = sw * pr.d_target_point[(1, j)];
+                }
+                for j in 0..6 {
+                    j0[m + j] = sw * pr.d_pose[(0, j)];
+                    j1[m + j] = sw * pr.d_pose[(1, j)];
+                    idx[nc + j] = nc + 6 * f + j;
+                    idx[m + j] = ng + j;
+                }
+                // Global indices ascend along the compact row, so (a <= b) stays upper.
+                for a in 0..m + 6 {
+                    let (pa, qa) = (j0[a], j1[a]);
+                    grad[idx[a]] += pa * r0 + qa * r1;
+                    for b in a..m + 6 {
+                        h[idx[a] * n + idx[b]] += pa * j0[b] + qa * j1[b];
+                    }
                 }
             }
         }
-        for i in 0..2 {
-            for j in 0..6 {
-                jp[(row + i, j)] = sw * pr.d_pose[(i, j)];
-            }
-        }
-        rr[row] = sw * r.x;
-        rr[row + 1] = sw * r.y;
-        row += 2;
     }
-    let vd = jp.tr_mul(&jp);
-    let ed = jp.tr_mul(&rr);
+    // The dense part in global indices: camera `i < nc` stays `i`, pose `nc + j` is `ng + j`.
+    let global = |i: usize| if i < nc { i } else { ng + i - nc };
+    let full = |i: usize, j: usize| {
+        let (i, j) = (i.min(j), i.max(j));
+        let local = |g: usize| {
+            if g < nc {
+                Some(g)
+            } else if g >= ng {
+                Some(nc + g - ng)
+            } else {
+                None
+            }
+        };
+        let dense = match (local(i), local(j)) {
+            (Some(a), Some(b)) => hl[a * m + b],
+            _ => 0.0,
+        };
+        dense + if h.is_empty() { 0.0 } else { h[i * n + j] }
+    };
+    for a in 0..m {
+        grad[global(a)] += gl[a];
+    }
     ViewBlock {
-        u: jg.tr_mul(&jg),
-        w: jg.tr_mul(&jp),
-        v: Matrix6::from_iterator(vd.iter().copied()),
-        g: jg.tr_mul(&rr),
-        e: Vector6::from_iterator(ed.iter().copied()),
+        u: DMatrix::from_fn(ng, ng, full),
+        w: DMatrix::from_fn(ng, 6, |i, j| full(i, ng + j)),
+        v: Matrix6::from_fn(|i, j| full(ng + i, ng + j)),
+        g: DVector::from_fn(ng, |i, _| grad[i]),
+        e: Vector6::from_fn(|i, _| grad[ng + i]),
         cost,
     }
 }
@@ -434,6 +497,12 @@ pub(crate) fn minimise(state: &mut State, layout: &Layout, views: &[ViewData], o
             }
         } else {
             records.push(IterationRecord { cost, lambda, step_norm, accepted: false });
+            // At the noise floor a step's change of cost is rounding: the function test holds
+            // for it too, and the state stays at the better point. Without this, damping is
+            // raised until the step test fires, each try costing a pass over every point.
+            if new_cost.is_finite() && (cost - new_cost).abs() <= o.function_tolerance * cost {
+                break Termination::FunctionTolerance;
+            }
             lambda *= nu;
             nu *= 2.0;
         }

@@ -7,7 +7,8 @@ use serde::{Deserialize, Serialize};
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Termination {
-    /// `cost - new_cost <= function_tolerance * cost` after an accepted step.
+    /// `cost - new_cost <= function_tolerance * cost` after an accepted step, or
+    /// `|cost - new_cost| <= function_tolerance * cost` after a rejected one.
     FunctionTolerance,
     /// `|delta| <= parameter_tolerance * (|x| + parameter_tolerance)`.
     ParameterTolerance,
