@@ -3,6 +3,7 @@
 
 mod util;
 
+mod calibrate;
 mod detect;
 mod render;
 mod solve;

@@ -46,6 +46,7 @@ fn calibration(camera: Camera) -> CalibrationFile {
             message: String::new(),
         },
         warnings: vec![],
+        target_file: None,
         inputs: vec![],
         verdict: None,
     }

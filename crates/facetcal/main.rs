@@ -5,6 +5,7 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod calibrate;
 mod demo;
 mod detect;
 mod exit;
@@ -26,6 +27,8 @@ struct Cli {
 enum Command {
     /// Run the built-in demonstration: render an end-of-line station's shots and calibrate them.
     Demo(demo::DemoArgs),
+    /// Calibrate a camera from a folder of images of a target.
+    Calibrate(calibrate::CalibrateArgs),
     /// Check a target file or write its printable sheets.
     Target(target::TargetArgs),
     /// Find and identify a target's features in images.
@@ -40,6 +43,7 @@ enum Command {
 
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
+        Command::Calibrate(a) => calibrate::run(a),
         Command::Demo(a) => demo::run(a),
         Command::Target(a) => target::run(a),
         Command::Detect(a) => detect::run(a),

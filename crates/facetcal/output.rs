@@ -37,7 +37,9 @@ pub fn write_new(path: &Path, bytes: &[u8], force: bool) -> anyhow::Result<()> {
         .map_err(fail)?;
     tmp.write_all(bytes).map_err(fail)?;
     tmp.as_file().sync_all().map_err(fail)?;
-    tmp.persist(path).map_err(|e| fail(e.error)).with_context(|| "atomic rename")?;
+    // Without --force, a file that appeared since the check above still wins.
+    let persisted = if force { tmp.persist(path) } else { tmp.persist_noclobber(path) };
+    persisted.map_err(|e| fail(e.error)).with_context(|| "atomic rename")?;
     Ok(())
 }
 

@@ -265,8 +265,12 @@ pub struct Correlation {
 pub enum ViewStatus {
     /// Its pose was estimated and its points used.
     Used,
-    /// Left out: too few points remained after rejection, or its pose could not be initialised.
+    /// Left out by the solver: too few points remained after rejection, or its pose could not
+    /// be initialised.
     Dropped,
+    /// Never reached the solver: the file could not be read or decoded, or the target was not
+    /// found in it (written by `facetcal calibrate`).
+    Failed,
 }
 
 /// The result for one view.
@@ -294,6 +298,14 @@ pub struct ViewResult {
     /// [`CalibrationFile::rejected`].
     #[serde(default)]
     pub residuals: Vec<[f64; 2]>,
+    /// The identity of each point, in the order of `residuals` (written by `facetcal
+    /// calibrate`; empty when the input had no identities).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub ids: Vec<FeatureId>,
+    /// The observed pixel of each point, in the order of `residuals` (written by `facetcal
+    /// calibrate`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub observed: Vec<[f64; 2]>,
 }
 
 /// A point left out by the outlier test.
@@ -369,6 +381,35 @@ pub struct InputRecord {
     pub sha256: String,
 }
 
+/// One test of the quality verdict.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct VerdictCheck {
+    /// A short kebab-case name (`rms`, `coverage`, `used-images`...).
+    pub name: String,
+    /// The measured value.
+    pub value: f64,
+    /// The threshold it was held to.
+    pub limit: f64,
+    /// `at-most` or `at-least`.
+    pub bound: String,
+    /// Whether the value is within the limit.
+    pub passed: bool,
+    /// A sentence for a person.
+    pub message: String,
+}
+
+/// The quality verdict of a calibration (written by `facetcal calibrate`): every check with
+/// the threshold used.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Verdict {
+    /// Whether every check passed.
+    pub passed: bool,
+    /// The checks, in a fixed order.
+    pub checks: Vec<VerdictCheck>,
+}
+
 /// The calibration result file.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -401,12 +442,15 @@ pub struct CalibrationFile {
     pub summary: SolverRecord,
     /// What the data do not constrain.
     pub warnings: Vec<WarningRecord>,
-    /// Hashes of the inputs (written by `facetcal calibrate`).
+    /// The target file and its hash (written by `facetcal calibrate`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub target_file: Option<InputRecord>,
+    /// Hashes of the input images, in the order of `views` (written by `facetcal calibrate`).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub inputs: Vec<InputRecord>,
-    /// A quality verdict (written by `facetcal calibrate`).
+    /// The quality verdict with its thresholds (written by `facetcal calibrate`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub verdict: Option<serde_json::Value>,
+    pub verdict: Option<Verdict>,
 }
 
 impl CalibrationFile {
@@ -439,10 +483,6 @@ fn find_null(v: &serde_json::Value, path: String) -> Option<String> {
             a.iter().enumerate().find_map(|(i, x)| find_null(x, format!("{path}[{i}]")))
         }
         serde_json::Value::Object(o) => o.iter().find_map(|(k, x)| {
-            // The verdict is free-form JSON written by another command.
-            if path.is_empty() && k == "verdict" {
-                return None;
-            }
             let p = if path.is_empty() { k.clone() } else { format!("{path}.{k}") };
             find_null(x, p)
         }),

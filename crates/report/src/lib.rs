@@ -19,7 +19,7 @@
 
 use std::fmt::Write;
 
-use facetcal_model::files::{CalibrationFile, ParameterStatus, ViewPoints, ViewStatus};
+use facetcal_model::files::{CalibrationFile, ParameterStatus, Verdict, ViewPoints, ViewStatus};
 use facetcal_sheet::escape_xml as esc;
 use nalgebra::Point2;
 
@@ -248,10 +248,11 @@ fn view_error_plot(cal: &CalibrationFile) -> String {
                 );
             }
             _ => {
-                let reason = v.reason.as_deref().unwrap_or("dropped");
+                let status = if v.status == ViewStatus::Failed { "failed" } else { "dropped" };
+                let reason = v.reason.as_deref().unwrap_or("no reason given");
                 let _ = writeln!(
                     o,
-                    r##"<text x="{label_w:.0}" y="{:.1}" font-size="11" fill="#7f8c8d">dropped: {}</text>"##,
+                    r##"<text x="{label_w:.0}" y="{:.1}" font-size="11" fill="#7f8c8d">{status}: {}</text>"##,
                     y + 12.0,
                     esc(reason)
                 );
@@ -334,6 +335,43 @@ fn parameter_table(cal: &CalibrationFile) -> String {
     o
 }
 
+fn verdict_table(v: &Verdict) -> String {
+    let mut o = String::new();
+    let _ = writeln!(
+        o,
+        "<h2>Verdict: <span class=\"{}\">{}</span></h2>\n<table class=\"verdict\"><thead><tr><th>check</th><th>value</th><th>limit</th><th>result</th><th>meaning</th></tr></thead><tbody>",
+        if v.passed { "pass" } else { "fail" },
+        if v.passed { "every check passed" } else { "FAILED" }
+    );
+    for c in &v.checks {
+        let _ = writeln!(
+            o,
+            "<tr><td>{}</td><td>{}</td><td>{} {}</td><td class=\"{}\">{}</td><td>{}</td></tr>",
+            esc(&c.name),
+            short(c.value),
+            if c.bound == "at-most" { "&le;" } else { "&ge;" },
+            short(c.limit),
+            if c.passed { "pass" } else { "fail" },
+            if c.passed { "pass" } else { "fail" },
+            esc(&c.message)
+        );
+    }
+    o.push_str("</tbody></table>\n");
+    o
+}
+
+/// A number with about four significant figures, without exponent for everyday magnitudes.
+fn short(x: f64) -> String {
+    if x.fract() == 0.0 && x.abs() < 1e9 {
+        format!("{x:.0}")
+    } else if (1e-3..1e5).contains(&x.abs()) {
+        let digits = (3 - x.abs().log10().floor() as i32).clamp(0, 6) as usize;
+        format!("{x:.digits$}")
+    } else {
+        format!("{x:.3e}")
+    }
+}
+
 /// The report page.
 pub fn calibration_html(title: &str, cal: &CalibrationFile, observations: &[ViewPoints]) -> String {
     let (coverage_svg, share) = coverage_plot(cal, observations);
@@ -355,7 +393,10 @@ figcaption {{ font-weight: bold; margin-bottom: 4px; }}
 table {{ border-collapse: collapse; margin: 8px 0; }}
 td, th {{ border: 1px solid #ccc; padding: 3px 8px; text-align: right; }}
 td:first-child, th:first-child {{ text-align: left; }}
+table.verdict td:last-child {{ text-align: left; }}
 .warn {{ color: #a04000; }}
+.pass {{ color: #1e7b34; }}
+.fail {{ color: #b3261e; font-weight: bold; }}
 </style></head><body>
 <h1>{t}</h1>
 <p>{model} model, image {w} x {h} px, {used} of {n} images used, RMS reprojection error <b>{rms:.3} px</b>, image coverage {cov:.0} %.</p>
@@ -371,7 +412,7 @@ td:first-child, th:first-child {{ text-align: left; }}
         caution = esc(CAUTION),
     );
     if let Some(v) = &cal.verdict {
-        let _ = writeln!(o, "<h2>Verdict</h2><pre class=\"verdict\">{}</pre>", esc(&v.to_string()));
+        o.push_str(&verdict_table(v));
     }
     o.push_str("<h2>Parameters</h2>\n");
     o.push_str(&parameter_table(cal));

@@ -39,6 +39,8 @@ fn sample() -> (CalibrationFile, Vec<ViewPoints>) {
             pose_std_dev: None,
             rms_px: (k != 2).then_some(0.12 + 0.05 * k as f64),
             residuals,
+            ids: vec![],
+            observed: vec![],
         });
     }
     let parameters = camera
@@ -73,6 +75,7 @@ fn sample() -> (CalibrationFile, Vec<ViewPoints>) {
             message: String::new(),
         },
         warnings: vec![],
+        target_file: None,
         inputs: vec![],
         verdict: None,
     };

@@ -116,6 +116,8 @@ impl Calibration {
                 pose_std_dev: self.pose_std_dev[v],
                 rms_px: self.summary.view_rms_px[v],
                 residuals: self.residuals[v].iter().map(|r| [r.x, r.y]).collect(),
+                ids: vec![],
+                observed: vec![],
             })
             .collect();
         let n = self.estimated.len();
@@ -163,6 +165,7 @@ impl Calibration {
                     message: w.message.clone(),
                 })
                 .collect(),
+            target_file: None,
             inputs: vec![],
             verdict: None,
         }
