@@ -286,12 +286,45 @@ impl Components {
     }
 }
 
+/// The component with its holes filled: on each row, the span from its first pixel to its last
+/// (exact for convex shapes; a square holding a face-code mark is a square again). Moments of
+/// the filled shape and its spans.
+fn row_hull(c: &Component, runs: impl Iterator<Item = Run>) -> (Component, Vec<Run>) {
+    let mut spans: Vec<Run> = Vec::new();
+    for r in runs {
+        match spans.last_mut() {
+            Some(s) if s.y == r.y => {
+                s.x0 = s.x0.min(r.x0);
+                s.x1 = s.x1.max(r.x1);
+            }
+            _ => spans.push(r),
+        }
+    }
+    let mut t = [0.0f64; 6];
+    for r in &spans {
+        let len = (r.x1 - r.x0 + 1) as f64;
+        let (sx, sxx) = run_sums(r.x0, r.x1);
+        let fy = r.y as f64;
+        t[0] += len;
+        t[1] += sx;
+        t[2] += len * fy;
+        t[3] += sxx;
+        t[4] += sx * fy;
+        t[5] += len * fy * fy;
+    }
+    let (mx, my) = (t[1] / t[0], t[2] / t[0]);
+    let cov = Matrix2::new(
+        t[3] / t[0] - mx * mx + 1.0 / 12.0,
+        t[4] / t[0] - mx * my,
+        t[4] / t[0] - mx * my,
+        t[5] / t[0] - my * my + 1.0 / 12.0,
+    );
+    (Component { area: t[0], mean: Point2::new(mx, my), cov, ..*c }, spans)
+}
+
 /// Largest whitened radius of a component's pixels. Along a row the whitened radius is a
 /// convex function of x, so each run's largest value is at one of its ends.
-fn max_whitened_radius(
-    c: &Component,
-    runs: impl Iterator<Item = Run>,
-) -> Option<(f64, Matrix2<f64>)> {
+fn max_whitened_radius(c: &Component, runs: &[Run]) -> Option<(f64, Matrix2<f64>)> {
     let inv = c.cov.try_inverse()?;
     let mut m: f64 = 0.0;
     for r in runs {
@@ -422,22 +455,69 @@ fn measure_dot(img: &GreyImage, c: &Component, noise: f64) -> Option<Blob> {
     Some(Blob { dot, diameter: 2.0 * (area / std::f64::consts::PI).sqrt() })
 }
 
-/// Grey level at a point (bilinear), for profiles.
-fn profile_crossing(img: &GreyImage, p: Point2<f64>, n: Vector2<f64>, reach: f64) -> Option<f64> {
+/// Keys' cubic convolution weights (a = -0.5) for the four taps around fraction `t` in
+/// `[0, 1)`: R. Keys, "Cubic convolution interpolation for digital image processing", IEEE
+/// TASSP 29(6), 1981.
+fn keys_weights(t: f64) -> [f64; 4] {
+    let w = |x: f64| {
+        let x = x.abs();
+        if x <= 1.0 {
+            (1.5 * x - 2.5) * x * x + 1.0
+        } else if x < 2.0 {
+            ((-0.5 * x + 2.5) * x - 4.0) * x + 2.0
+        } else {
+            0.0
+        }
+    };
+    [w(t + 1.0), w(t), w(1.0 - t), w(2.0 - t)]
+}
+
+/// Grey level at a subpixel point by cubic convolution, border replicated. Bilinear
+/// interpolation of a blurred edge moves its mid-level crossing with the subpixel phase by a
+/// few hundredths of a pixel; the cubic kernel is exact for quadratics.
+fn sample_cubic(img: &GreyImage, x: f64, y: f64) -> f64 {
+    if !(x.is_finite() && y.is_finite()) {
+        return 0.0;
+    }
+    let (x0, y0) = (x.floor(), y.floor());
+    let (wx, wy) = (keys_weights(x - x0), keys_weights(y - y0));
+    let (xi, yi) = (x0.clamp(-4.0, 1e9) as isize, y0.clamp(-4.0, 1e9) as isize);
+    let mut s = 0.0;
+    for (j, &b) in wy.iter().enumerate() {
+        let mut row = 0.0;
+        for (i, &a) in wx.iter().enumerate() {
+            row += a * img.at_clamped(xi + i as isize - 1, yi + j as isize - 1) as f64;
+        }
+        s += b * row;
+    }
+    s
+}
+
+/// Mid-level crossing along a profile, for square sides: `(offset, ink level, ground level)`,
+/// the offset along `n` from `p`. The mid level is `level` when given (the mean over a whole
+/// side: the two end samples of one profile carry the full image noise), else the mean of
+/// the profile's two ends.
+fn profile_crossing(
+    img: &GreyImage,
+    p: Point2<f64>,
+    n: Vector2<f64>,
+    reach: f64,
+    level: Option<f64>,
+) -> Option<(f64, f64, f64)> {
     // Samples every 0.25 px from -reach (inside, ink) to +reach (outside, ground).
     let steps = (reach / 0.25).round() as i32;
-    let vals: Vec<f64> = (-steps..=steps)
-        .map(|k| {
-            let t = k as f64 * 0.25;
-            img.sample(p.x + t * n.x, p.y + t * n.y)
-        })
-        .collect();
+    let mut vals = [0.0f64; 2 * 24 + 1];
+    let vals = &mut vals[..(2 * steps + 1) as usize];
+    for (v, k) in vals.iter_mut().zip(-steps..=steps) {
+        let t = k as f64 * 0.25;
+        *v = sample_cubic(img, p.x + t * n.x, p.y + t * n.y);
+    }
     let lo = *vals.first()?;
     let hi = *vals.last()?;
     if hi - lo < 0.02 {
         return None;
     }
-    let mid = 0.5 * (lo + hi);
+    let mid = level.unwrap_or(0.5 * (lo + hi));
     let mut found = None;
     for k in 0..vals.len() - 1 {
         if (vals[k] - mid) * (vals[k + 1] - mid) <= 0.0 && vals[k + 1] != vals[k] {
@@ -448,11 +528,38 @@ fn profile_crossing(img: &GreyImage, p: Point2<f64>, n: Vector2<f64>, reach: f64
             found = Some((k as f64 + f - steps as f64) * 0.25);
         }
     }
-    found
+    found.map(|o| (o, lo, hi))
+}
+
+fn median(v: &mut [f64]) -> Option<f64> {
+    if v.is_empty() {
+        return None;
+    }
+    let mid = v.len() / 2;
+    Some(*v.select_nth_unstable_by(mid, f64::total_cmp).1)
+}
+
+/// A line fitted by total least squares, with the variances of its position across itself at
+/// the centroid (`s^2 / n`) and of its angle (`s^2 / sum t^2`, `t` along the line), `s^2` the
+/// residual variance `sum r^2 / (n - 2)`.
+#[derive(Clone, Copy, Debug)]
+struct FittedLine {
+    point: Point2<f64>,
+    dir: Vector2<f64>,
+    var_offset: f64,
+    var_angle: f64,
+}
+
+impl FittedLine {
+    /// Variance of the line's position across itself at `p` (a point on the line).
+    fn var_at(&self, p: Point2<f64>) -> f64 {
+        let t = self.dir.dot(&(p - self.point));
+        self.var_offset + t * t * self.var_angle
+    }
 }
 
 /// Total least squares line through points: (point on line, unit direction).
-fn fit_line(pts: &[Point2<f64>]) -> Option<(Point2<f64>, Vector2<f64>)> {
+fn fit_line(pts: &[Point2<f64>]) -> Option<FittedLine> {
     if pts.len() < 3 {
         return None;
     }
@@ -466,17 +573,37 @@ fn fit_line(pts: &[Point2<f64>]) -> Option<(Point2<f64>, Vector2<f64>)> {
     let e = SymmetricEigen::new(c);
     let i = if e.eigenvalues[0] >= e.eigenvalues[1] { 0 } else { 1 };
     let v = e.eigenvectors.column(i);
-    Some((Point2::from(m), Vector2::new(v[0], v[1])))
+    let dir = Vector2::new(v[0], v[1]);
+    let normal = Vector2::new(-dir.y, dir.x);
+    let (mut rr, mut tt) = (0.0, 0.0);
+    for p in pts {
+        let d = p.coords - m;
+        rr += normal.dot(&d).powi(2);
+        tt += dir.dot(&d).powi(2);
+    }
+    let s2 = rr / (n - 2.0);
+    Some(FittedLine {
+        point: Point2::from(m),
+        dir,
+        var_offset: s2 / n,
+        var_angle: if tt > 0.0 { s2 / tt } else { f64::INFINITY },
+    })
 }
 
-fn intersect(
-    a: (Point2<f64>, Vector2<f64>),
-    b: (Point2<f64>, Vector2<f64>),
-) -> Option<Point2<f64>> {
-    let m = Matrix2::new(a.1.x, -b.1.x, a.1.y, -b.1.y);
-    let t = m.try_inverse()? * (b.0 - a.0);
-    let p = a.0 + a.1 * t.x;
-    (p.x.is_finite() && p.y.is_finite()).then_some(p)
+/// The intersection of two lines and its covariance: moving line `i` across itself by `e_i`
+/// moves the intersection by `N^-1 e` (`N` the rows of unit normals), so the covariance is
+/// `N^-1 diag(var_a, var_b) N^-T` with each line's variance at the intersection.
+fn intersect(a: &FittedLine, b: &FittedLine) -> Option<(Point2<f64>, Matrix2<f64>)> {
+    let m = Matrix2::new(a.dir.x, -b.dir.x, a.dir.y, -b.dir.y);
+    let t = m.try_inverse()? * (b.point - a.point);
+    let p = a.point + a.dir * t.x;
+    if !(p.x.is_finite() && p.y.is_finite()) {
+        return None;
+    }
+    let normals = Matrix2::new(-a.dir.y, a.dir.x, -b.dir.y, b.dir.x);
+    let ni = normals.try_inverse()?;
+    let cov = ni * Matrix2::new(a.var_at(p), 0.0, 0.0, b.var_at(p)) * ni.transpose();
+    Some((p, cov))
 }
 
 /// Corners of a square-like dark component.
@@ -545,15 +672,21 @@ fn measure_square(
         let reach = (0.2 * len).clamp(2.0, 6.0);
         let count = (2.0 * len).floor().max(3.0) as usize;
         let mut edge = Vec::with_capacity(count);
+        let (mut ink, mut ground) = (Vec::with_capacity(count), Vec::with_capacity(count));
         for i in 0..count {
             let s = 0.1 * len + 0.8 * len * (i as f64 + 0.5) / count as f64;
             let base = p + t * s;
-            if let Some(off) = profile_crossing(img, base, n, reach) {
+            if let Some((off, lo, hi)) = profile_crossing(img, base, n, reach, None) {
                 edge.push(base + n * off);
+                ink.push(lo);
+                ground.push(hi);
             }
         }
-        // A second pass along the fitted line removes the coarse line's pixel-level error.
-        let (lp, ld) = fit_line(&edge)?;
+        // A second pass along the fitted line removes the coarse line's pixel-level error, at
+        // the side's mean mid level.
+        let level = 0.5 * (median(&mut ink)? + median(&mut ground)?);
+        let first = fit_line(&edge)?;
+        let (lp, ld) = (first.point, first.dir);
         let mut n2 = Vector2::new(-ld.y, ld.x);
         if n2.dot(&n) < 0.0 {
             n2 = -n2;
@@ -561,18 +694,28 @@ fn measure_square(
         let mut edge2 = Vec::with_capacity(count);
         for e in &edge {
             let base = lp + ld * ld.dot(&(e - lp));
-            if let Some(off) = profile_crossing(img, base, n2, reach) {
+            if let Some((off, _, _)) = profile_crossing(img, base, n2, reach, Some(level)) {
                 edge2.push(base + n2 * off);
             }
         }
-        lines.push(fit_line(&edge2)?);
+        // Crossings closer than about 2 px share pixels through the interpolation kernel, so
+        // the points are not independent: the fit's variances count one point per 2 px.
+        let mut line = fit_line(&edge2)?;
+        let shared = (2.0 / (0.8 * len / count as f64)).max(1.0);
+        line.var_offset *= shared;
+        line.var_angle *= shared;
+        lines.push(line);
     }
     let mut corners = [Point2::origin(); 4];
+    let mut var = 0.0f64;
+    // Per-axis variance of a corner, averaged over the four.
     for k in 0..4 {
-        corners[k] = intersect(lines[(k + 3) % 4], lines[k])?;
+        let (p, cov) = intersect(&lines[(k + 3) % 4], &lines[k])?;
+        corners[k] = p;
         if (corners[k] - coarse[k]).norm() > 4.0 {
             return None;
         }
+        var += 0.125 * cov.trace();
     }
     // Clockwise in the image (y down: increasing atan2 angle), starting nearest the top-left.
     let centre = corners.iter().fold(Vector2::zeros(), |a, p| a + p.coords) / 4.0;
@@ -582,7 +725,8 @@ fn measure_square(
     let start = (0..4)
         .min_by(|&i, &j| (corners[i].x + corners[i].y).total_cmp(&(corners[j].x + corners[j].y)))?;
     corners.rotate_left(start);
-    Some(SquareOutline { corners, sigma: 0.0 })
+    let sigma = var.sqrt();
+    Some(SquareOutline { corners, sigma: if sigma.is_finite() { sigma } else { f64::MAX } })
 }
 
 /// Round blobs (both inks) and square outlines; `noise` is the image noise (normalised grey).
@@ -600,13 +744,16 @@ pub(crate) fn detect_blobs(
     let mut blobs = Vec::new();
     let mut squares = Vec::new();
     for c in &comps.list {
-        let Some((r, inv)) = max_whitened_radius(c, comps.runs_of(c, &runs)) else { continue };
+        // The shape test sees the filled outline: a mark inside a square leaves a hole that
+        // widens the second moments and would make a tilted square pass for round.
+        let (filled, spans) = row_hull(c, comps.runs_of(c, &runs));
+        let Some((r, inv)) = max_whitened_radius(&filled, &spans) else { continue };
         if r < 2.2 {
             if let Some(b) = measure_dot(img, c, noise) {
                 blobs.push(b);
             }
-        } else if want_squares && c.ink == Ink::Dark && r < 3.0 && c.area >= 16.0 {
-            if let Some(s) = measure_square(img, c, comps.runs_of(c, &runs), &inv) {
+        } else if want_squares && c.ink == Ink::Dark && r < 3.0 && filled.area >= 16.0 {
+            if let Some(s) = measure_square(img, &filled, spans.into_iter(), &inv) {
                 squares.push(s);
             }
         }

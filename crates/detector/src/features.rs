@@ -60,7 +60,14 @@ pub struct SquareOutline {
     /// The four corners, subpixel, in clockwise order in the image (x right, y down), starting
     /// with the corner nearest the top-left.
     pub corners: [Point2<f64>; 4],
-    /// Standard deviation of each corner along each axis, pixels.
+    /// Standard deviation of a corner along each axis, pixels, from the fit: each side's line
+    /// is fitted to its edge points by total least squares, its residual variance `s^2` gives
+    /// the variance of the line's position across itself, `s^2 / n + t^2 s^2 / sum t_i^2` at
+    /// a distance `t` from the points' centroid (scaled by the number of points per 2 px of
+    /// side, since closer points share pixels through the interpolation), and each corner's
+    /// covariance follows from the two lines through it; `sigma^2` is the per-axis variance averaged over the four
+    /// corners. It counts the image noise and the edge points' scatter, not blur or model
+    /// error.
     pub sigma: f64,
 }
 
