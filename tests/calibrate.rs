@@ -93,7 +93,9 @@ fn calibrate_recovers_the_rendered_camera_for_every_bundled_target() {
     let root = scratch();
     // Flat targets: five views tilted 15 to 40 degrees; targets with faces off one plane: two
     // views (one would do; two make the distortion better constrained).
-    let cases: [(&str, Camera, u32, [f64; 2], [f64; 2]); 5] = [
+    // (target, camera, views, distance range, tilt range)
+    type Case = (&'static str, Camera, u32, [f64; 2], [f64; 2]);
+    let cases: [Case; 5] = [
         ("checkerboard", lens(640, 480, 620.0, -0.12, 0.04), 5, [420.0, 520.0], [15.0, 40.0]),
         ("dot-grid", lens(1024, 768, 900.0, -0.12, 0.04), 5, [500.0, 600.0], [15.0, 40.0]),
         ("square-grid", lens(1024, 768, 900.0, -0.12, 0.04), 5, [500.0, 600.0], [15.0, 40.0]),
