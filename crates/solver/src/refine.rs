@@ -86,6 +86,9 @@ pub(crate) struct ViewBlock {
     pub e: Vector6<f64>,
     /// `1/2 sum rho(|r|^2)`; infinite if a point left the model's domain.
     pub cost: f64,
+    /// Every point had loss weight `rho' = 1` (inside a robust loss's quadratic part), so
+    /// the block equals the plain least-squares one.
+    pub unit_weights: bool,
 }
 
 /// Cost of one view without Jacobians.
@@ -138,6 +141,7 @@ fn view_block(state: &State, layout: &Layout, v: usize, view: &ViewData, loss: &
     let mut j1 = vec![0.0; m + 6];
     let mut idx: Vec<usize> = (0..m + 6).collect();
     let mut cost = 0.0;
+    let mut unit_weights = true;
     let pose = &state.poses[v];
     for k in 0..view.targets.len() {
         if !view.inlier[k] {
@@ -151,6 +155,7 @@ fn view_block(state: &State, layout: &Layout, v: usize, view: &ViewData, loss: &
         let r = view.images[k] - pr.pixel;
         let (rho, weight) = loss.evaluate(r.norm_squared());
         cost += 0.5 * rho;
+        unit_weights &= weight == 1.0;
         let sw = weight.sqrt();
         for (c, col) in layout.cam_columns.iter().enumerate() {
             let (mut a, mut b) = (0.0, 0.0);
@@ -226,6 +231,7 @@ fn view_block(state: &State, layout: &Layout, v: usize, view: &ViewData, loss: &
         g: DVector::from_fn(ng, |i, _| grad[i]),
         e: Vector6::from_fn(|i, _| grad[ng + i]),
         cost,
+        unit_weights,
     }
 }
 
@@ -409,6 +415,9 @@ pub(crate) struct Run {
     pub iterations: usize,
     pub termination: Termination,
     pub records: Vec<IterationRecord>,
+    /// The blocks at the final state (the uncertainty reuses them when they are plain least
+    /// squares).
+    pub blocks: Vec<Option<ViewBlock>>,
 }
 
 /// Levenberg-Marquardt from `state`, which it updates.
@@ -507,7 +516,7 @@ pub(crate) fn minimise(state: &mut State, layout: &Layout, views: &[ViewData], o
             nu *= 2.0;
         }
     };
-    Run { iterations, termination, records }
+    Run { iterations, termination, records, blocks: bl }
 }
 
 #[cfg(test)]

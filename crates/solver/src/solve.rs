@@ -531,7 +531,7 @@ pub fn calibrate(
     let mut iterations = 0;
     let mut records = Vec::new();
     let mut rounds = 0;
-    let termination = loop {
+    let (termination, final_blocks) = loop {
         rounds += 1;
         let run = minimise(&mut state, &layout, &data, options);
         iterations += run.iterations;
@@ -540,7 +540,7 @@ pub fn calibrate(
             || options.reject_sigmas == 0.0
             || rounds > options.max_rejection_rounds
         {
-            break run.termination;
+            break (run.termination, run.blocks);
         }
         let threshold = rejection_threshold(&state, &data, options);
         let mut any = false;
@@ -577,7 +577,7 @@ pub fn calibrate(
             }
         }
         if !any {
-            break run.termination;
+            break (run.termination, run.blocks);
         }
     };
     if termination == Termination::InvalidStart {
@@ -595,7 +595,7 @@ pub fn calibrate(
     }
     let inliers: usize = data.iter().filter(|d| d.active).map(|d| d.inliers()).sum();
     let n_params = layout.n_global() + 6 * active;
-    let cov = covariance(&state, &layout, &data, 2 * inliers, n_params).ok_or(
+    let cov = covariance(&state, &layout, &data, final_blocks, 2 * inliers, n_params).ok_or(
         SolverError::TooFewPoints { method: "calibration", got: inliers, need: n_params / 2 + 1 },
     )?;
 

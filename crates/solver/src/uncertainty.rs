@@ -10,7 +10,7 @@
 use nalgebra::{DMatrix, Matrix6};
 
 use crate::options::Loss;
-use crate::refine::{Layout, State, ViewData, blocks, reduce, spd_inverse};
+use crate::refine::{Layout, State, ViewBlock, ViewData, blocks, reduce, spd_inverse};
 
 /// Covariances at a solution.
 pub(crate) struct Covariance {
@@ -25,16 +25,23 @@ pub(crate) struct Covariance {
     pub null_direction: Option<Vec<f64>>,
 }
 
-/// The covariance of the least-squares estimate on the inliers.
+/// The covariance of the least-squares estimate on the inliers. `at_state` are the blocks
+/// the minimiser ended with: when every loss weight was 1 they are the plain least-squares
+/// blocks at `state` and are used as they are; otherwise those are evaluated.
 pub(crate) fn covariance(
     state: &State,
     layout: &Layout,
     views: &[ViewData],
+    at_state: Vec<Option<ViewBlock>>,
     residuals: usize,
     parameters: usize,
 ) -> Option<Covariance> {
     let ng = layout.n_global();
-    let bl = blocks(state, layout, views, &Loss::Squared);
+    let bl = if at_state.iter().flatten().all(|b| b.unit_weights) {
+        at_state
+    } else {
+        blocks(state, layout, views, &Loss::Squared)
+    };
     let sum_sq: f64 = bl.iter().flatten().map(|b| 2.0 * b.cost).sum();
     if residuals <= parameters || !sum_sq.is_finite() {
         return None;
