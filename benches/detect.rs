@@ -6,6 +6,10 @@
 //!   guide; 960 x 540 and a 2 x 2 tiling at 3840 x 2160 show the cost against the pixel count.
 //! - `blur/*`: the detector's separable `f32` Gaussian against
 //!   `imageproc::filter::gaussian_blur_f32`, the reason the detector has its own.
+//! - `regions/*`: the blob stage's local-mean threshold and 8-connected labelling
+//!   (`count_regions`: sliding integer box sums, runs, union-find over runs) against the same
+//!   threshold from `imageproc::integral_image` and two `imageproc` `connected_components`
+//!   passes on the 8-bit image, the reason the detector labels runs itself.
 //! - Working memory: a counting allocator records the peak of live heap bytes during one
 //!   `detect` call beyond what was live before it; printed per pixel before the benchmarks.
 
@@ -132,6 +136,57 @@ fn bench(c: &mut Criterion) {
         b.iter(|| imageproc::filter::gaussian_blur_f32(&ip, 1.5))
     });
     g.finish();
+
+    let mut g = c.benchmark_group("regions");
+    g.sample_size(20);
+    let opts = DetectorOptions::for_kind(PatternKind::Checkerboard);
+    g.bench_function("detector_runs_1920x1080", |b| {
+        b.iter(|| facetcal_detector::count_regions(&hd, &opts))
+    });
+    let grey8 = image::GrayImage::from_raw(
+        1920,
+        1080,
+        hd.data().iter().map(|&v| (v * 255.0).round() as u8).collect(),
+    )
+    .expect("sizes match");
+    g.bench_function("imageproc_1920x1080", |b| {
+        b.iter(|| imageproc_regions(&grey8, opts.threshold_radius as u32, opts.min_contrast))
+    });
+    g.finish();
+}
+
+/// The blob stage's threshold and labelling written with `imageproc`: integral image, local
+/// mean over the clipped square of radius `r`, dark and light masks, two labellings.
+fn imageproc_regions(img: &image::GrayImage, r: u32, min_contrast: f64) -> usize {
+    use imageproc::integral_image::{integral_image, sum_image_pixels};
+    use imageproc::region_labelling::{Connectivity, connected_components};
+    let (w, h) = img.dimensions();
+    let ii = integral_image::<_, u32>(img);
+    let delta = min_contrast / 4.0 * 255.0;
+    let mut dark = image::GrayImage::new(w, h);
+    let mut light = image::GrayImage::new(w, h);
+    for y in 0..h {
+        let (y0, y1) = (y.saturating_sub(r), (y + r).min(h - 1));
+        for x in 0..w {
+            let (x0, x1) = (x.saturating_sub(r), (x + r).min(w - 1));
+            let n = ((x1 - x0 + 1) * (y1 - y0 + 1)) as f64;
+            let m = sum_image_pixels(&ii, x0, y0, x1, y1)[0] as f64 / n;
+            let v = img.get_pixel(x, y)[0] as f64;
+            if v < m - delta {
+                dark.put_pixel(x, y, image::Luma([255]));
+            } else if v > m + delta {
+                light.put_pixel(x, y, image::Luma([255]));
+            }
+        }
+    }
+    let count = |mask: &image::GrayImage| {
+        connected_components(mask, Connectivity::Eight, image::Luma([0u8]))
+            .pixels()
+            .map(|p| p[0])
+            .max()
+            .unwrap_or(0) as usize
+    };
+    count(&dark) + count(&light)
 }
 
 criterion_group!(benches, bench);

@@ -60,7 +60,7 @@ impl Patch<'_> {
     fn at_clamped(&self, x: isize, y: isize) -> f32 {
         let xc = x.clamp(0, self.w as isize - 1) as usize;
         let yc = y.clamp(0, self.h as isize - 1) as usize;
-        self.ring[(yc % self.slots) * self.w + xc]
+        self.ring[(yc & (self.slots - 1)) * self.w + xc]
     }
 
     /// Bilinear interpolation, as [`GreyImage::sample`].
@@ -455,7 +455,7 @@ pub(crate) fn detect_with_noise(
     kept
 }
 
-/// One pass down the image. Smoothed rows go into a ring of `2 reach + 2` rows; each row's saddle
+/// One pass down the image. Smoothed rows go into a ring of at least `2 reach + 2` rows; each row's saddle
 /// response (border pixels zero) into a ring of 3; the row between is suppressed to its 3 x 3
 /// maxima above `thr` (ties broken towards the first in raster order), which are appended to
 /// `cands` with their response. Each candidate is handed to `test` as soon as the smoothed rows
@@ -477,7 +477,8 @@ fn scan(
 ) -> bool {
     let (w, h) = (img.width(), img.height());
     let reach = patch_reach(ring_radius) as usize;
-    let slots = 2 * reach + 2;
+    // A power of two, so that a row's slot is a mask, not a division.
+    let slots = (2 * reach + 2).next_power_of_two();
     let mut sm = RowSmoother::new(img, sigma, std::mem::take(&mut ws.ring));
     let mut srows = std::mem::take(&mut ws.rows);
     srows.clear();
@@ -545,11 +546,20 @@ fn scan(
 fn suppress(rrows: &[f32], w: usize, yc: usize, thr: f32, cands: &mut Vec<(usize, usize, f32)>) {
     let row_of = |r: usize| &rrows[(r % 3) * w..(r % 3 + 1) * w];
     let (up, row, dn) = (row_of(yc - 1), row_of(yc), row_of(yc + 1));
-    for x in 1..w - 1 {
+    // Most of a row lies below the threshold: skip blocks of 16 with one vectorised test.
+    const B: usize = 16;
+    let mut x = 1;
+    while x < w - 1 {
+        if x + B < w && row[x..x + B].iter().map(|&v| (v > thr) as u32).sum::<u32>() == 0 {
+            x += B;
+            continue;
+        }
         let v = row[x];
+        x += 1;
         if v <= thr {
             continue;
         }
+        let x = x - 1;
         if v > up[x - 1]
             && v > up[x]
             && v > up[x + 1]

@@ -40,12 +40,19 @@ fn convolve_row(src: &[f32], kernel: &[f32], out: &mut [f32]) {
     const B: usize = 16;
     let n_in = w - 2 * r;
     let full = n_in / B * B;
+    // The kernel is symmetric: taps j and 2r - j share a product.
     for b0 in (0..full).step_by(B) {
+        let c: &[f32; B] = src[b0 + r..b0 + r + B].try_into().expect("block of B");
         let mut acc = [0.0f32; B];
-        for (j, &k) in kernel.iter().enumerate() {
-            let s: &[f32; B] = src[b0 + j..b0 + j + B].try_into().expect("block of B");
+        for i in 0..B {
+            acc[i] = kernel[r] * c[i];
+        }
+        for (j, &k) in kernel[..r].iter().enumerate() {
+            let a: &[f32; B] = src[b0 + j..b0 + j + B].try_into().expect("block of B");
+            let b: &[f32; B] =
+                src[b0 + 2 * r - j..b0 + 2 * r - j + B].try_into().expect("block of B");
             for i in 0..B {
-                acc[i] += k * s[i];
+                acc[i] += k * (a[i] + b[i]);
             }
         }
         out[r + b0..r + b0 + B].copy_from_slice(&acc);
@@ -110,7 +117,7 @@ impl<'a> RowSmoother<'a> {
             }
         }
         let o = &mut out[..w];
-        // Blocks of 16 columns summed over the taps in registers, in the taps' order.
+        // Blocks of 16 columns summed over the taps in registers, symmetric taps paired.
         const B: usize = 16;
         let rows: Vec<&[f32]> = (0..n)
             .map(|j| {
@@ -120,11 +127,16 @@ impl<'a> RowSmoother<'a> {
             .collect();
         let full = w / B * B;
         for x0 in (0..full).step_by(B) {
+            let c: &[f32; B] = rows[r][x0..x0 + B].try_into().expect("block of B");
             let mut acc = [0.0f32; B];
-            for (row, &k) in rows.iter().zip(&self.kernel) {
-                let src: &[f32; B] = row[x0..x0 + B].try_into().expect("block of B");
+            for i in 0..B {
+                acc[i] = self.kernel[r] * c[i];
+            }
+            for (j, &k) in self.kernel[..r].iter().enumerate() {
+                let a: &[f32; B] = rows[j][x0..x0 + B].try_into().expect("block of B");
+                let b: &[f32; B] = rows[n - 1 - j][x0..x0 + B].try_into().expect("block of B");
                 for i in 0..B {
-                    acc[i] += k * src[i];
+                    acc[i] += k * (a[i] + b[i]);
                 }
             }
             o[x0..x0 + B].copy_from_slice(&acc);
@@ -178,7 +190,8 @@ pub fn gaussian_blur(src: &GreyImage, sigma: f64) -> GreyImage {
 /// Robust standard deviation of the image noise: the median absolute response to the mask
 /// `[1 -2 1; -2 4 -2; 1 -2 1]` (J. Immerkaer, "Fast noise variance estimation", CVIU 64(2),
 /// 1996, which uses the mean; the median keeps edges of the pattern from inflating it), on
-/// every second row and column. For Gaussian noise the response has standard deviation
+/// every fourth row and second column (a quarter of a million samples at 1920 x 1080 pin the
+/// median to a fraction of a percent). For Gaussian noise the response has standard deviation
 /// `6 sigma` and median absolute value `0.6745 * 6 sigma`.
 ///
 /// The median is selected exactly in linear time: a non-negative `f32` orders like its bit
@@ -190,10 +203,10 @@ pub fn estimate_noise(img: &GreyImage) -> f64 {
         return 0.0;
     }
     let d = img.data();
-    let mut vals = Vec::with_capacity((w / 2) * (h / 2));
+    let mut vals = Vec::with_capacity((w / 2) * (h / 4 + 1));
     let mut resp = vec![0.0f32; w];
     let mut hist = vec![0u32; 1 << 15];
-    for y in (1..h - 1).step_by(2) {
+    for y in (1..h - 1).step_by(4) {
         let (a, b, c) =
             (&d[(y - 1) * w..y * w], &d[y * w..(y + 1) * w], &d[(y + 1) * w..(y + 2) * w]);
         // Whole row first (it vectorises), then every second column.

@@ -32,6 +32,15 @@ pub use image::GreyImage;
 pub use options::DetectorOptions;
 pub use perspective::{circle_centre_offset, correct_dot_centre};
 
+/// The number of regions of the blob stage's threshold: 8-connected components of the pixels
+/// darker than their local mean (square of radius `threshold_radius`) by `min_contrast / 4`,
+/// and of those lighter by as much. Public so that `benches/detect.rs` can time the detector's
+/// own thresholding and labelling against `imageproc`'s integral image and
+/// `connected_components`.
+pub fn count_regions(img: &GreyImage, opts: &DetectorOptions) -> usize {
+    blobs::count_regions(img, opts)
+}
+
 /// Detects the features of every pattern kind the options list.
 pub fn detect(img: &GreyImage, opts: &DetectorOptions) -> Result<Detections, DetectError> {
     opts.validate()?;
