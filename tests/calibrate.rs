@@ -258,6 +258,46 @@ fn calibrate_error_paths_exit_codes_and_messages() {
     let run = calibrate_in(r, &images, &target, &blocker.join("out"), &[]);
     assert_eq!(run.code, 73, "{}", run.stderr);
 
+    // `verify`: the shot the camera was calibrated from fits it; a stricter limit fails it;
+    // the overlay is written; an image that cannot be read is reported.
+    let cal = out.join("calibration.json");
+    let shot = images.join("corner-00.png");
+    let overlays = r.join("overlays");
+    let (cal_s, target_s) = (cal.to_str().unwrap(), target.to_str().unwrap());
+    let run = facetcal(
+        r,
+        &[
+            "verify",
+            shot.to_str().unwrap(),
+            "--calibration",
+            cal_s,
+            "--target",
+            target_s,
+            "--overlay",
+            overlays.to_str().unwrap(),
+        ],
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    assert!(run.stdout.contains("147 points") && run.stdout.contains("pass"), "{}", run.stdout);
+    assert!(overlays.join("corner-00.verify.png").is_file());
+    let shot_s = shot.to_str().unwrap();
+    let args =
+        ["verify", shot_s, "--calibration", cal_s, "--target", target_s, "--max-rms", "0.0001"];
+    let run = facetcal(r, &args);
+    assert_eq!(run.code, 65, "{}", run.stdout);
+    assert!(run.stdout.contains("FAILED"), "{}", run.stdout);
+    let broken = images.join("broken.png");
+    let run = facetcal(
+        r,
+        &["verify", broken.to_str().unwrap(), "--calibration", cal_s, "--target", target_s],
+    );
+    assert_eq!(run.code, 65, "{}", run.stderr);
+    assert!(
+        run.stderr.contains("broken.png") && run.stderr.contains("cannot verify"),
+        "{}",
+        run.stderr
+    );
+
     // Bad options: exit 64.
     let run = calibrate_in(r, &images, &target, &r.join("o7"), &["--min-coverage", "2"]);
     assert_eq!(run.code, 64, "{}", run.stderr);

@@ -14,6 +14,7 @@ mod render;
 mod solve;
 mod target;
 mod undistort;
+mod verify;
 
 /// Automatic target detection and camera calibration.
 #[derive(Parser, Debug)]
@@ -37,6 +38,8 @@ enum Command {
     Render(render::RenderArgs),
     /// Remove the lens distortion from images with a calibration.
     Undistort(undistort::UndistortArgs),
+    /// Check a calibration on new images of the target by its reprojection error.
+    Verify(verify::VerifyArgs),
     /// Calibrate from a correspondence file (target points and their pixels, per view).
     Solve(solve::SolveArgs),
 }
@@ -50,6 +53,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Render(a) => render::run(a),
         Command::Undistort(a) => undistort::run(a),
         Command::Solve(a) => solve::run(a),
+        Command::Verify(a) => verify::run(a),
     }
 }
 

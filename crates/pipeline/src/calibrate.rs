@@ -448,3 +448,91 @@ fn file_observations(
         })
         .collect()
 }
+
+/// How well a calibrated camera explains a new image of the target: the target's pose from the
+/// identified features with the camera held fixed, and the reprojection errors at that pose.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ImageCheck {
+    /// Target-to-camera pose.
+    pub pose: Pose,
+    /// Identified features: observed pixel and its reprojection at `pose`.
+    pub points: Vec<(FeatureId, Point2<f64>, Point2<f64>)>,
+    /// Every target feature in front of the camera and inside the image, projected at `pose`
+    /// (for drawing what the calibration predicts).
+    pub predicted: Vec<Point2<f64>>,
+    /// RMS reprojection error (point distances), pixels.
+    pub rms_px: f64,
+    /// Largest reprojection error, pixels.
+    pub max_px: f64,
+}
+
+/// Checks a calibrated camera against one image: detect, identify, estimate the pose with the
+/// camera fixed, and measure the reprojection errors. A camera that fits its calibration
+/// images but not a new one is the first sign of a bad calibration.
+pub fn check_image(
+    path: &Path,
+    camera: &Camera,
+    target: &Target,
+    settings: &Settings,
+) -> Result<ImageCheck, ImageFailure> {
+    let record = observe_image(path, target, settings);
+    let features = record.outcome?;
+    if features.size != (camera.width, camera.height) {
+        return Err(ImageFailure {
+            stage: "image-size",
+            message: format!(
+                "{}: {} x {} px, the calibration is for {} x {} px",
+                path.display(),
+                features.size.0,
+                features.size.1,
+                camera.width,
+                camera.height
+            ),
+        });
+    }
+    let obs: Vec<Observation> = features
+        .points
+        .iter()
+        .map(|c| Observation {
+            id: Some(c.id),
+            target: Point3::from(c.target),
+            image: Point2::from(c.image),
+        })
+        .collect();
+    let pose = facetcal_solver::estimate_pose(camera, &obs, &settings.solver)
+        .map_err(|e| ImageFailure { stage: "pose", message: format!("{}: {e}", path.display()) })?;
+    let mut points = Vec::with_capacity(obs.len());
+    let (mut sum2, mut max) = (0.0, 0.0f64);
+    for o in &obs {
+        let (Some(id), Ok(p)) = (o.id, camera.project(&pose.transform(&o.target))) else {
+            continue;
+        };
+        let d = (o.image - p).norm();
+        sum2 += d * d;
+        max = max.max(d);
+        points.push((id, o.image, p));
+    }
+    if points.is_empty() {
+        return Err(ImageFailure {
+            stage: "pose",
+            message: format!(
+                "{}: no identified point projects at the estimated pose",
+                path.display()
+            ),
+        });
+    }
+    let inside = |p: &Point2<f64>| {
+        p.x >= -0.5
+            && p.y >= -0.5
+            && p.x <= camera.width as f64 - 0.5
+            && p.y <= camera.height as f64 - 0.5
+    };
+    let predicted = target
+        .features()
+        .iter()
+        .filter_map(|(_, x)| camera.project(&pose.transform(x)).ok())
+        .filter(inside)
+        .collect();
+    let rms_px = (sum2 / points.len() as f64).sqrt();
+    Ok(ImageCheck { pose, points, predicted, rms_px, max_px: max })
+}

@@ -11,8 +11,8 @@ pub mod error;
 pub mod verdict;
 
 pub use calibrate::{
-    CalibrationRun, ImageFailure, ImageFeatures, ImageRecord, Settings, SkippedFile,
-    calibrate_records, list_images, observe_image, observe_images_par,
+    CalibrationRun, ImageCheck, ImageFailure, ImageFeatures, ImageRecord, Settings, SkippedFile,
+    calibrate_records, check_image, list_images, observe_image, observe_images_par,
 };
 pub use error::PipelineError;
 pub use verdict::{QualityGate, judge};
