@@ -38,6 +38,28 @@ pub(crate) struct Node {
     pub rectify: Matrix2<f64>,
     /// Two sizes that vary slowly across a face: a dot's semi-axes, a square's mean sides.
     pub size: Option<[f64; 2]>,
+    /// The order of `axes` carries the checker parity: the sector from `axes[0]` to `axes[1]`
+    /// by increasing angle is dark. Lattice neighbours along an axis then list the same two
+    /// lines in swapped order, diagonal neighbours in the same order.
+    pub parity: bool,
+}
+
+/// Angle between two lines (directions taken modulo pi), in [0, pi/2].
+fn line_angle(a: &Vector2<f64>, b: &Vector2<f64>) -> f64 {
+    let c = (a.dot(b) / (a.norm() * b.norm())).abs().min(1.0);
+    c.acos()
+}
+
+/// Whether two checker corners have opposite parity (their edge lines in swapped order), or
+/// `None` when either carries no parity.
+pub(crate) fn parity_flipped(a: &Node, b: &Node) -> Option<bool> {
+    if !(a.parity && b.parity) {
+        return None;
+    }
+    let ([a0, a1], [b0, b1]) = (a.axes?, b.axes?);
+    let same = line_angle(&a0, &b0) + line_angle(&a1, &b1);
+    let swapped = line_angle(&a0, &b1) + line_angle(&a1, &b0);
+    Some(swapped < same)
 }
 
 /// A grown face candidate.
@@ -172,6 +194,23 @@ fn agrees(
             return false;
         }
     }
+    // Checker parity alternates along both axes: a node whose parity disagrees with a
+    // neighbour's sits on the wrong lattice (a diagonal taken for an axis grows a sheared
+    // lattice that fits the homography as well as the true one).
+    if n.parity {
+        for di in -1..=1i32 {
+            for dj in -1..=1i32 {
+                if (di, dj) == (0, 0) {
+                    continue;
+                }
+                let Some(&o) = cells.get(&(at.0 + di, at.1 + dj)) else { continue };
+                let axis = (di + dj).abs() == 1;
+                if parity_flipped(n, &nodes[o]).is_some_and(|f| f != axis) {
+                    return false;
+                }
+            }
+        }
+    }
     if let Some(sz) = n.size {
         let (mut sum, mut count) = ([0.0, 0.0], 0.0);
         for di in -1..=1 {
@@ -245,7 +284,9 @@ impl<'a> Builder<'a> {
         let pick = |dir: &Vector2<f64>, min_cos: f64, exclude: Option<usize>| {
             near.iter()
                 .filter(|(k, v)| {
-                    Some(*k) != exclude && (v.dot(dir) / (v.norm() * dir.norm())).abs() > min_cos
+                    Some(*k) != exclude
+                        && (v.dot(dir) / (v.norm() * dir.norm())).abs() > min_cos
+                        && parity_flipped(node, &self.nodes[*k]) != Some(false)
                 })
                 .map(|&(k, v)| (k, v))
                 .next()

@@ -173,6 +173,7 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                     axes: Some(c.edges),
                     rectify: Matrix2::identity(),
                     size: None,
+                    parity: true,
                 });
                 push(DetectionRef { kind: DetectionKind::CheckerCorner, index }, n, left_out);
             }
@@ -185,6 +186,7 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                     rectify: rectifier(&d.ellipse),
                     size: Some([d.ellipse.semi_major, d.ellipse.semi_minor])
                         .filter(|s| s.iter().all(|v| v.is_finite() && *v > 0.0)),
+                    parity: false,
                 });
                 push(DetectionRef { kind: DetectionKind::Dot, index }, n, left_out);
             }
@@ -201,6 +203,7 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                             axes: Some([a1, a2]),
                             rectify: Matrix2::identity(),
                             size: Some([0.5 * a1.norm(), 0.5 * a2.norm()]),
+                            parity: false,
                         }
                     })
                 } else {
@@ -214,7 +217,12 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
 }
 
 /// Seen marks per component: each mark is mapped into the lattice of the (at most two)
-/// components owning its nearest nodes, and kept where it lands on a cell centre.
+/// components owning its nearest nodes, and kept where it lands on a cell centre and its
+/// equivalent diameter is between 0.35 and 2 times that of a printed mark there (`sizes`: the
+/// mark diameters of the kind's faces in lattice units; the image of a disc of diameter `d`
+/// has equivalent diameter `d sqrt(|det J|)` for the local map's Jacobian `J`). The size test
+/// refuses what a detector may take for a mark but is none, such as a whole light cell
+/// around a dark mark.
 fn seen_marks(
     det: &Detections,
     inks: &[Ink],
@@ -224,6 +232,7 @@ fn seen_marks(
     builder: &Builder<'_>,
     nodes: &[Node],
     tol: f64,
+    sizes: &[f64],
 ) -> Vec<BTreeSet<SeenMark>> {
     let mut out = vec![BTreeSet::new(); comps.len()];
     for m in &det.marks {
@@ -240,6 +249,21 @@ fn seen_marks(
             // The local map leaves out `cell` itself; that only matters for its accuracy.
             let Some(inv) = map.inverse() else { continue };
             let Some(uv) = inv.apply(&m.centre) else { continue };
+            let at = |du: f64, dv: f64| map.apply(&Point2::new(uv.x + du, uv.y + dv));
+            let (Some(a0), Some(a1), Some(b0), Some(b1)) =
+                (at(-0.5, 0.0), at(0.5, 0.0), at(0.0, -0.5), at(0.0, 0.5))
+            else {
+                continue;
+            };
+            let (ju, jv) = (a1 - a0, b1 - b0);
+            let scale = (ju.x * jv.y - ju.y * jv.x).abs().sqrt();
+            let sized = sizes.iter().any(|&d| {
+                let r = m.diameter / (d * scale);
+                r.is_finite() && (0.35..=2.0).contains(&r)
+            });
+            if !sized {
+                continue;
+            }
             let seen = if on_nodes {
                 let (a, b) = (uv.x.round(), uv.y.round());
                 ((uv.x - a).abs() < tol && (uv.y - b).abs() < tol).then_some((a as i32, b as i32))
@@ -429,8 +453,24 @@ fn identify_kind(
         PatternKind::SquareGrid => vec![Ink::Light],
     };
     let on_nodes = kind == PatternKind::SquareGrid;
-    let marks =
-        seen_marks(det, &inks, on_nodes, &comps, &owner, &builder, &nodes, opts.mark_tolerance);
+    // One lattice step: the cell, the dot pitch, the square pitch.
+    let step = |p: &PatternSpec| match *p {
+        PatternSpec::Checkerboard { cell, .. } => cell,
+        PatternSpec::DotGrid { pitch, .. } | PatternSpec::SquareGrid { pitch, .. } => pitch,
+    };
+    let sizes: Vec<f64> =
+        faces.iter().map(|(_, f)| f.mark_diameter() / step(f.pattern())).collect();
+    let marks = seen_marks(
+        det,
+        &inks,
+        on_nodes,
+        &comps,
+        &owner,
+        &builder,
+        &nodes,
+        opts.mark_tolerance,
+        &sizes,
+    );
     let mut starts: BTreeMap<usize, usize> = BTreeMap::new();
     let rule = place::Rule {
         min_marks: opts.min_marks,

@@ -160,6 +160,15 @@ fn shuffle<T>(v: &mut [T], rng: &mut SeededRng) {
     }
 }
 
+/// The edge lines of checker corner `(row, col)` in the detector's parity order: the cell
+/// towards face `+x +y` is dark when `row + col` is even (cell `(row + 1, col + 1)`), and the
+/// face map keeps the handedness, so the dark sector then runs from the image of `+x` to that
+/// of `+y`; otherwise from `+y` to `-x`.
+fn checker_edges(j: &Matrix2<f64>, row_plus_col: u32) -> [Vector2<f64>; 2] {
+    let (x, y) = (angle_dir(j.column(0).into()), angle_dir(j.column(1).into()));
+    if row_plus_col % 2 == 0 { [x, y] } else { [y, x] }
+}
+
 fn angle_dir(v: Vector2<f64>) -> Vector2<f64> {
     let v = v.normalize();
     // Angles in [0, pi).
@@ -277,10 +286,7 @@ pub fn synthesize(
                                 position: q,
                                 sigma: scene.noise_px,
                                 strength: 1.0,
-                                edges: [
-                                    angle_dir(j.column(0).into()),
-                                    angle_dir(j.column(1).into()),
-                                ],
+                                edges: checker_edges(&j, id.row + id.col),
                             });
                             out.corners.push(Some(id));
                         }
@@ -307,7 +313,7 @@ pub fn synthesize(
                 continue;
             }
             let d = face_jacobian(camera, pose, face, &local, step)
-                .map(|j| (j * Vector2::new(face.mark_diameter(), 0.0)).norm())
+                .map(|j| face.mark_diameter() * j.determinant().abs().sqrt())
                 .unwrap_or(1.0);
             out.detections.marks.push(Mark {
                 centre: noisy(p, &mut rng),
