@@ -1,7 +1,14 @@
 //! Solver benchmarks: Zhang's published problem (5 views, 1280 points, read from the
 //! reference folder) and a synthetic 50 views of 200 points, single-threaded. The figures go
 //! into DEVELOPERS.md ("Solver").
+//!
+//! Each problem is timed twice: `solve/...` in wall-clock time and `solve-cpu/...` in the CPU
+//! time of the process (Linux only; skipped elsewhere). On a shared, loaded machine the wall
+//! time mostly measures the neighbours; the CPU time does not.
 
+use std::time::Duration;
+
+use criterion::measurement::{Measurement, ValueFormatter, WallTime};
 use criterion::{Criterion, criterion_group, criterion_main};
 use facetcal_model::files::FreeParameters;
 use facetcal_model::{Camera, Distortion, DistortionKind, Intrinsics, Pose, SeededRng};
@@ -60,7 +67,48 @@ fn synthetic_views() -> Vec<ViewObservations> {
         .collect()
 }
 
-fn bench(c: &mut Criterion) {
+/// CPU time of the whole process: the sum over its threads of `sum_exec_runtime`, the first
+/// field of `/proc/self/task/<tid>/schedstat`, in nanoseconds (Linux, see the kernel's
+/// `Documentation/scheduler/sched-stats.rst`).
+fn process_cpu() -> Option<Duration> {
+    let mut ns: u64 = 0;
+    for task in std::fs::read_dir("/proc/self/task").ok()? {
+        let stat = std::fs::read_to_string(task.ok()?.path().join("schedstat")).ok()?;
+        ns += stat.split_whitespace().next()?.parse::<u64>().ok()?;
+    }
+    Some(Duration::from_nanos(ns))
+}
+
+/// Criterion measurement in process CPU time. The bench runs the solver on a one-thread pool
+/// while the calling thread waits, so this is the solver's own time.
+struct ProcessCpu;
+
+impl Measurement for ProcessCpu {
+    type Intermediate = Duration;
+    type Value = Duration;
+    fn start(&self) -> Duration {
+        process_cpu().unwrap_or_default()
+    }
+    fn end(&self, start: Duration) -> Duration {
+        process_cpu().unwrap_or_default().saturating_sub(start)
+    }
+    fn add(&self, a: &Duration, b: &Duration) -> Duration {
+        *a + *b
+    }
+    fn zero(&self) -> Duration {
+        Duration::ZERO
+    }
+    fn to_f64(&self, v: &Duration) -> f64 {
+        v.as_nanos() as f64
+    }
+    fn formatter(&self) -> &dyn ValueFormatter {
+        // Nanoseconds, like wall time: reuse its formatter.
+        static WALL: WallTime = WallTime;
+        WALL.formatter()
+    }
+}
+
+fn bench_with<M: Measurement + 'static>(c: &mut Criterion<M>, group: &str) {
     let single = rayon::ThreadPoolBuilder::new().num_threads(1).build().unwrap();
     if let Some(views) = zhang_views() {
         let o = Options {
@@ -69,7 +117,7 @@ fn bench(c: &mut Criterion) {
             reject_sigmas: 0.0,
             ..Options::default()
         };
-        c.bench_function("solve/zhang_5x256", |b| {
+        c.bench_function(&format!("{group}/zhang_5x256"), |b| {
             b.iter(|| {
                 single.install(|| {
                     calibrate(&views, (640, 480), DistortionKind::BrownConrady, None, &o).unwrap()
@@ -79,7 +127,7 @@ fn bench(c: &mut Criterion) {
     }
     let views = synthetic_views();
     let o = Options::default();
-    c.bench_function("solve/synthetic_50x200_single_thread", |b| {
+    c.bench_function(&format!("{group}/synthetic_50x200_single_thread"), |b| {
         b.iter(|| {
             single.install(|| {
                 calibrate(&views, (1920, 1080), DistortionKind::BrownConrady, None, &o).unwrap()
@@ -88,5 +136,20 @@ fn bench(c: &mut Criterion) {
     });
 }
 
+fn bench(c: &mut Criterion) {
+    bench_with(c, "solve");
+}
+
+fn bench_cpu(c: &mut Criterion<ProcessCpu>) {
+    if process_cpu().is_some() {
+        bench_with(c, "solve-cpu");
+    }
+}
+
 criterion_group!(benches, bench);
-criterion_main!(benches);
+criterion_group! {
+    name = cpu;
+    config = Criterion::default().with_measurement(ProcessCpu);
+    targets = bench_cpu
+}
+criterion_main!(benches, cpu);
