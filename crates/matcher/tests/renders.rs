@@ -238,9 +238,9 @@ fn rendered_views_across_the_robustness_range_are_identified_without_a_wrong_ide
     }
     assert_eq!(wrong, 0);
     // The issue asks for 99 % of the detected true features: NOT met. Measured 2026-12-02:
-    // 1892 of 5915 (0.320). The refused candidates have a correct lattice but contradict the
-    // face code by 2 to 4 marks: at this scale (marks of 6 to 10 px) the detector misses marks
-    // and reports others that are not there, and no square-grid mark is seen at all. This
-    // guards the measured level.
-    assert!(frac >= 0.30, "identified {correct} of {detected} detected true features");
+    // 2172 of 6047 (0.359). The refused candidates have a correct lattice but contradict the
+    // face code by 2 to 4 marks: at this scale (marks of 6 to 10 px) and on steep faces the
+    // detector misses marks and reports others that are not there. This guards the measured
+    // level.
+    assert!(frac >= 0.33, "identified {correct} of {detected} detected true features");
 }
