@@ -5,6 +5,7 @@ mod util;
 
 mod calibrate;
 mod detect;
+mod regress;
 mod render;
 mod solve;
 mod target;

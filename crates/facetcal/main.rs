@@ -10,6 +10,7 @@ mod demo;
 mod detect;
 mod exit;
 mod output;
+mod regress;
 mod render;
 mod solve;
 mod target;
@@ -42,6 +43,8 @@ enum Command {
     Verify(verify::VerifyArgs),
     /// Calibrate from a correspondence file (target points and their pixels, per view).
     Solve(solve::SolveArgs),
+    /// Run the detector accuracy regression suite on synthetic renders.
+    Regress(regress::RegressArgs),
 }
 
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
@@ -53,6 +56,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Render(a) => render::run(a),
         Command::Undistort(a) => undistort::run(a),
         Command::Solve(a) => solve::run(a),
+        Command::Regress(a) => regress::run(a),
         Command::Verify(a) => verify::run(a),
     }
 }
