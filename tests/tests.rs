@@ -3,6 +3,7 @@
 
 mod util;
 
+mod bad_input;
 mod calibrate;
 mod detect;
 mod regress;
