@@ -24,13 +24,13 @@ pub struct DemoArgs {
 
 /// A folder name that does not exist yet, so that nothing is ever overwritten.
 fn fresh_folder(base: &Path) -> PathBuf {
-    if !base.exists() {
-        return base.to_path_buf();
+    let mut candidate = base.to_path_buf();
+    let mut k = 2;
+    while candidate.exists() {
+        candidate = PathBuf::from(format!("{}-{k}", base.display()));
+        k += 1;
     }
-    (2..)
-        .map(|k| PathBuf::from(format!("{}-{k}", base.display())))
-        .find(|p| !p.exists())
-        .expect("some suffix is free")
+    candidate
 }
 
 pub fn run(args: DemoArgs) -> anyhow::Result<ExitCode> {

@@ -1,6 +1,8 @@
 //! The `facetcal` command: parses arguments and wires the library crates together.
 //! Everything that computes lives in the library crates; see DEVELOPERS.md.
 
+#![deny(clippy::unwrap_used, clippy::expect_used)]
+
 use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};

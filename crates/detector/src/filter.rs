@@ -18,6 +18,8 @@ pub fn gaussian_kernel(sigma: f64) -> Vec<f32> {
 }
 
 /// Convolves one row with a symmetric odd-length kernel into `out`, border replicated.
+// Blocks are sliced B long by construction, so the conversions to `[f32; B]` cannot fail.
+#[allow(clippy::expect_used)]
 fn convolve_row(src: &[f32], kernel: &[f32], out: &mut [f32]) {
     let w = src.len();
     let r = kernel.len() / 2;
@@ -103,6 +105,8 @@ impl<'a> RowSmoother<'a> {
 
     /// Writes smoothed row `y` (`y < height`) into `out` (`width` values). Rows are cheapest
     /// in increasing order: each input row is filtered horizontally once.
+    // Blocks are sliced B long by construction, so the conversions to `[f32; B]` cannot fail.
+    #[allow(clippy::expect_used)]
     pub fn row_into(&mut self, y: usize, out: &mut [f32]) {
         let (w, h) = (self.src.width(), self.src.height());
         let n = self.kernel.len();

@@ -16,6 +16,9 @@
 //! 16-bit images stay 16-bit; colour stays colour (the detector converts to grey).
 //! This crate never writes files and knows nothing of targets or cameras.
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors, and the few
+// invariants that cannot fail say so with an allowed `expect` beside the reason.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 use std::io::{Cursor, Read};
 use std::path::{Path, PathBuf};

@@ -26,6 +26,9 @@
 //!
 //! The matcher never reads files and never sees pixels.
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors, and the few
+// invariants that cannot fail say so with an allowed `expect` beside the reason.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 mod error;
 mod fit;

@@ -30,6 +30,9 @@
 //!
 //! This crate reads target files but never touches images.
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors, and the few
+// invariants that cannot fail say so with an allowed `expect` beside the reason.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 pub mod camera;
 pub mod error;

@@ -563,6 +563,8 @@ impl TargetSpec {
     }
 
     /// The file's text, pretty-printed.
+    // A derived struct of strings, numbers and sequences always serialises.
+    #[allow(clippy::expect_used)]
     pub fn to_json(&self) -> String {
         serde_json::to_string_pretty(self).expect("a target spec always serialises")
     }

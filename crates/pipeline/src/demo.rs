@@ -28,6 +28,8 @@ pub struct DemoUnit {
 ///
 /// # Panics
 /// Never for the embedded file, which the test suite checks.
+// The embedded file is checked by this crate's tests.
+#[allow(clippy::expect_used)]
 pub fn demo_target() -> Target {
     Target::from_json(CORNER_TARGET).expect("the embedded corner target is valid")
 }

@@ -4,6 +4,9 @@
 //! This crate wires the image reader, detector, matcher and solver crates; it owns no
 //! algorithm of its own beyond the order of the steps and the quality verdict.
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors, and the few
+// invariants that cannot fail say so with an allowed `expect` beside the reason.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 pub mod calibrate;
 pub mod demo;

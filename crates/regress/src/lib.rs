@@ -33,6 +33,9 @@
 //! assert!((m.rms_px.unwrap() - 0.05).abs() < 1e-12);
 //! ```
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors, and the few
+// invariants that cannot fail say so with an allowed `expect` beside the reason.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 pub mod baseline;
 pub mod cache;

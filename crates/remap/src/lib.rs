@@ -9,6 +9,9 @@
 //!
 //! Images keep their pixel type and bit depth. This crate never reads or writes files.
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors, and the few
+// invariants that cannot fail say so with an allowed `expect` beside the reason.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 use facetcal_model::{Camera, Intrinsics};
 use image::{DynamicImage, ImageBuffer, Pixel, Rgb, RgbImage};
@@ -130,6 +133,8 @@ impl UndistortMap {
                 }
             }
         });
+        // `out` was allocated with the map's width x height x channels.
+        #[allow(clippy::expect_used)]
         ImageBuffer::from_raw(self.width, self.height, out).expect("buffer has the map's size")
     }
 }

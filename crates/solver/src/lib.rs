@@ -46,6 +46,9 @@
 //! assert!((cal.camera.intrinsics.fx - 600.0).abs() < 1e-6);
 //! ```
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors, and the few
+// invariants that cannot fail say so with an allowed `expect` beside the reason.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 pub mod error;
 pub mod linear;
