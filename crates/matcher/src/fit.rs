@@ -77,22 +77,66 @@ pub fn fit_homography(src: &[Point2<f64>], dst: &[Point2<f64>]) -> Option<PlaneM
     }
     let ts = normaliser(src)?;
     let td = normaliser(dst)?;
+    // The normal equations of the rows `[p, 0, -u q]` and `[0, p, -v q]` (p = (x, y, 1),
+    // q = (x, y)) have block structure, so the 8 x 8 matrix is filled from 23 sums instead of
+    // 2 x 64 products per point.
+    let (sa, sd) = (ts[(0, 0)], td[(0, 0)]);
+    let (ca, cb, cu, cv) = (ts[(0, 2)], ts[(1, 2)], td[(0, 2)], td[(1, 2)]);
+    let mut m = [0.0f64; 23];
+    for (a, b) in src.iter().zip(dst) {
+        let (x, y) = (sa * a.x + ca, sa * a.y + cb);
+        let (u, v) = (sd * b.x + cu, sd * b.y + cv);
+        if !(x.is_finite() && y.is_finite() && u.is_finite() && v.is_finite()) {
+            return None;
+        }
+        let (xx, xy, yy) = (x * x, x * y, y * y);
+        let w = u * u + v * v;
+        m[0] += xx;
+        m[1] += xy;
+        m[2] += yy;
+        m[3] += x;
+        m[4] += y;
+        m[5] += 1.0;
+        m[6] += u * xx;
+        m[7] += u * xy;
+        m[8] += u * yy;
+        m[9] += u * x;
+        m[10] += u * y;
+        m[11] += v * xx;
+        m[12] += v * xy;
+        m[13] += v * yy;
+        m[14] += v * x;
+        m[15] += v * y;
+        m[16] += w * xx;
+        m[17] += w * xy;
+        m[18] += w * yy;
+        m[19] += u;
+        m[20] += v;
+        m[21] += w * x;
+        m[22] += w * y;
+    }
+    let pp = [[m[0], m[1], m[3]], [m[1], m[2], m[4]], [m[3], m[4], m[5]]];
+    // Sum of u p q^T: rows x, y, 1; columns x, y.
+    let upq = [[m[6], m[7]], [m[7], m[8]], [m[9], m[10]]];
+    let vpq = [[m[11], m[12]], [m[12], m[13]], [m[14], m[15]]];
     let mut ata = SMatrix::<f64, 8, 8>::zeros();
-    let mut atb = SVector::<f64, 8>::zeros();
-    for (s, d) in src.iter().zip(dst) {
-        let s = apply_raw(&ts, s)?;
-        let d = apply_raw(&td, d)?;
-        // u (h31 x + h32 y + 1) = h11 x + h12 y + h13, and the same for v.
-        let rows = [
-            ([s.x, s.y, 1.0, 0.0, 0.0, 0.0, -d.x * s.x, -d.x * s.y], d.x),
-            ([0.0, 0.0, 0.0, s.x, s.y, 1.0, -d.y * s.x, -d.y * s.y], d.y),
-        ];
-        for (a, b) in rows {
-            let a = SVector::<f64, 8>::from(a);
-            ata += a * a.transpose();
-            atb += a * b;
+    for (r, ((p, u), v)) in pp.iter().zip(&upq).zip(&vpq).enumerate() {
+        for (c, &e) in p.iter().enumerate() {
+            ata[(r, c)] = e;
+            ata[(r + 3, c + 3)] = e;
+        }
+        for (c, (&uc, &vc)) in u.iter().zip(v).enumerate() {
+            ata[(r, 6 + c)] = -uc;
+            ata[(6 + c, r)] = -uc;
+            ata[(r + 3, 6 + c)] = -vc;
+            ata[(6 + c, r + 3)] = -vc;
         }
     }
+    ata[(6, 6)] = m[16];
+    ata[(6, 7)] = m[17];
+    ata[(7, 6)] = m[17];
+    ata[(7, 7)] = m[18];
+    let atb = SVector::<f64, 8>::from([m[9], m[10], m[19], m[14], m[15], m[20], -m[21], -m[22]]);
     let ch = ata.cholesky()?;
     // Collinear or nearly collinear points leave the system rank deficient; rounding may still
     // let the factorisation through, so test the pivots' spread as a condition estimate.
