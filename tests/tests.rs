@@ -11,3 +11,4 @@ mod render;
 mod solve;
 mod target;
 mod undistort;
+mod watch;

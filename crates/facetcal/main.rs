@@ -17,6 +17,7 @@ mod render;
 mod solve;
 mod target;
 mod undistort;
+mod watch;
 mod verify;
 
 /// Automatic target detection and camera calibration.
@@ -45,6 +46,8 @@ enum Command {
     Verify(verify::VerifyArgs),
     /// Calibrate from a correspondence file (target points and their pixels, per view).
     Solve(solve::SolveArgs),
+    /// Serve a drop folder: calibrate every batch handed over into it, exactly once.
+    Watch(watch::WatchArgs),
     /// Run the detector accuracy regression suite on synthetic renders.
     Regress(regress::RegressArgs),
 }
@@ -58,6 +61,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Render(a) => render::run(a),
         Command::Undistort(a) => undistort::run(a),
         Command::Solve(a) => solve::run(a),
+        Command::Watch(a) => watch::run(a),
         Command::Regress(a) => regress::run(a),
         Command::Verify(a) => verify::run(a),
     }
