@@ -26,6 +26,7 @@ pub mod filter;
 pub mod image;
 pub mod options;
 pub mod perspective;
+pub mod probe;
 
 use facetcal_model::PatternKind;
 
@@ -34,6 +35,7 @@ pub use features::{CheckerCorner, Detections, Dot, Ellipse, Mark, SquareOutline}
 pub use image::GreyImage;
 pub use options::DetectorOptions;
 pub use perspective::{circle_centre_offset, correct_dot_centre};
+pub use probe::{MarkProbe, MarkSample, mark_samples};
 
 /// The number of regions of the blob stage's threshold: 8-connected components of the pixels
 /// darker than their local mean (square of radius `threshold_radius`) by `min_contrast / 4`,

@@ -24,7 +24,8 @@
 //! assert_eq!(id.point_count(), synth.true_count());
 //! ```
 //!
-//! The matcher never reads files and never sees pixels.
+//! The matcher never reads files; it sees pixels only through the prober passed to
+//! [`identify_with`].
 #![deny(missing_docs)]
 // Library code never unwraps: input-derived failures are typed errors, and the few
 // invariants that cannot fail say so with an allowed `expect` beside the reason.
@@ -39,7 +40,7 @@ pub mod synthetic;
 
 use std::collections::{BTreeMap, BTreeSet};
 
-use facetcal_detector::Detections;
+use facetcal_detector::{Detections, MarkProbe, MarkSample};
 use facetcal_model::{DotLayout, Face, FeatureId, Ink, PatternKind, PatternSpec, Target};
 use nalgebra::{Matrix2, Point2, Vector2};
 
@@ -292,6 +293,130 @@ fn seen_marks(
     out
 }
 
+/// How a probed mark cell reads.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Probed {
+    Mark { light: bool },
+    Empty,
+    Unsure,
+}
+
+/// Normalised mark score at or above which a cell reads as marked, and below which it reads as
+/// empty; between them it is unsure. A printed mark scores 1 on a sharp image and about 0.5
+/// under a blur of the mark's own radius, an empty cell 0 (negative where its ring catches the
+/// neighbours' ink).
+const MARKED: f64 = 0.35;
+const EMPTY: f64 = 0.15;
+/// Smallest contrast between a cell's ground and the mark ink (full scale 1) worth reading.
+const MIN_CONTRAST: f64 = 0.04;
+
+/// Reads every mark cell of one candidate lattice on the image. A cell's score is
+/// `(inner - ring) / (ink - ring)`: its inner disc against its own ground, over the contrast of
+/// the ground against the mark ink measured beside the cell (checkers: the grounds of the axis
+/// neighbour cells, of the opposite colour; dot grids: the four dots around the gap; square
+/// grids: the four gaps diagonal to the square). `radius` is the printed mark radius in lattice
+/// units; the probe ellipses follow the local homography, so tilted faces are read as well.
+fn probe_marks(
+    cells: &BTreeMap<Cell, usize>,
+    nodes: &[Node],
+    kind: PatternKind,
+    radius: f64,
+    probe: MarkProber<'_>,
+) -> BTreeMap<Cell, Probed> {
+    let on_nodes = kind == PatternKind::SquareGrid;
+    let mut targets: BTreeSet<Cell> = BTreeSet::new();
+    if on_nodes {
+        targets.extend(cells.keys().copied());
+    } else {
+        for &(i, j) in cells.keys() {
+            for c in [(i - 1, j - 1), (i, j - 1), (i - 1, j), (i, j)] {
+                let corners = [(0, 0), (1, 0), (0, 1), (1, 1)]
+                    .iter()
+                    .filter(|d| cells.contains_key(&(c.0 + d.0, c.1 + d.1)))
+                    .count();
+                if corners >= 2 {
+                    targets.insert(c);
+                }
+            }
+        }
+    }
+    let centre_of = |c: Cell| {
+        if on_nodes {
+            Point2::new(c.0 as f64, c.1 as f64)
+        } else {
+            Point2::new(c.0 as f64 + 0.5, c.1 as f64 + 0.5)
+        }
+    };
+    // Reference places of a cell, in lattice coordinates.
+    let refs_of = |c: Cell| -> [Point2<f64>; 4] {
+        let p = centre_of(c);
+        let d: [(f64, f64); 4] = match kind {
+            PatternKind::Checkerboard => [(-1.0, 0.0), (1.0, 0.0), (0.0, -1.0), (0.0, 1.0)],
+            _ => [(-0.5, -0.5), (0.5, -0.5), (-0.5, 0.5), (0.5, 0.5)],
+        };
+        d.map(|(x, y)| Point2::new(p.x + x, p.y + y))
+    };
+    let probe_at = |c: Cell, uv: Point2<f64>| -> Option<MarkProbe> {
+        let map = local_map(cells, nodes, c, 2)?;
+        let centre = map.apply(&uv)?;
+        let du = map.apply(&Point2::new(uv.x + 0.5, uv.y))?
+            - map.apply(&Point2::new(uv.x - 0.5, uv.y))?;
+        let dv = map.apply(&Point2::new(uv.x, uv.y + 0.5))?
+            - map.apply(&Point2::new(uv.x, uv.y - 0.5))?;
+        let jacobian = Matrix2::from_columns(&[du * radius, dv * radius]);
+        (finite(&centre) && jacobian.iter().all(|v| v.is_finite()))
+            .then_some(MarkProbe { centre, jacobian })
+    };
+    let mut requests: Vec<MarkProbe> = Vec::new();
+    // Per target: index of its own probe and of its reference probes in `requests`.
+    let mut plan: Vec<(Cell, usize, Vec<usize>)> = Vec::new();
+    for &c in &targets {
+        let Some(own) = probe_at(c, centre_of(c)) else { continue };
+        requests.push(own);
+        let own_at = requests.len() - 1;
+        let mut refs = Vec::new();
+        for uv in refs_of(c) {
+            if let Some(p) = probe_at(c, uv) {
+                requests.push(p);
+                refs.push(requests.len() - 1);
+            }
+        }
+        plan.push((c, own_at, refs));
+    }
+    let samples = probe(&requests);
+    let get = |k: usize| samples.get(k).copied().flatten();
+    let mut out = BTreeMap::new();
+    for (c, own_at, refs) in plan {
+        let Some(own) = get(own_at) else { continue };
+        let levels: Vec<f64> = refs
+            .iter()
+            .filter_map(|&k| get(k))
+            .map(|s| if kind == PatternKind::Checkerboard { s.ring } else { s.inner })
+            .filter(|v| v.is_finite())
+            .collect();
+        if levels.len() < 2 || !(own.inner.is_finite() && own.ring.is_finite()) {
+            out.insert(c, Probed::Unsure);
+            continue;
+        }
+        let ink = levels.iter().sum::<f64>() / levels.len() as f64;
+        let contrast = ink - own.ring;
+        let read = if contrast.abs() < MIN_CONTRAST {
+            Probed::Unsure
+        } else {
+            let score = (own.inner - own.ring) / contrast;
+            if score >= MARKED {
+                Probed::Mark { light: contrast > 0.0 }
+            } else if score < EMPTY {
+                Probed::Empty
+            } else {
+                Probed::Unsure
+            }
+        };
+        out.insert(c, read);
+    }
+    out
+}
+
 /// Removes the nodes of `cells` that fail the leave-one-out residual test, worst first within
 /// each 5 x 5 neighbourhood; returns the removed cells.
 fn prune(cells: &mut BTreeMap<Cell, usize>, nodes: &[Node], tol: f64) -> Vec<(Cell, usize)> {
@@ -389,6 +514,32 @@ pub fn identify(
     target: &Target,
     opts: &MatchOptions,
 ) -> Result<Identification, MatchError> {
+    identify_inner(det, target, opts, None)
+}
+
+/// What [`identify_with`] asks of the image: the levels at each probed place, `None` where it
+/// cannot be read. `facetcal_detector::mark_samples` on the detected image is the intended one.
+pub type MarkProber<'a> = &'a dyn Fn(&[MarkProbe]) -> Vec<Option<MarkSample>>;
+
+/// [`identify`], with the face code read at every mark cell of a candidate lattice by probing
+/// the image there (see `probe_marks`) instead of only from the detector's marks: a mark too
+/// small or too tilted for the detector's threshold is still read, and a blob that is no mark
+/// no longer counts where the probe reads the cell.
+pub fn identify_with(
+    det: &Detections,
+    target: &Target,
+    opts: &MatchOptions,
+    probe: MarkProber<'_>,
+) -> Result<Identification, MatchError> {
+    identify_inner(det, target, opts, Some(probe))
+}
+
+fn identify_inner(
+    det: &Detections,
+    target: &Target,
+    opts: &MatchOptions,
+    probe: Option<MarkProber<'_>>,
+) -> Result<Identification, MatchError> {
     opts.validate()?;
     for f in target.faces() {
         if let PatternSpec::DotGrid { layout: DotLayout::Staggered, .. } = f.pattern() {
@@ -417,7 +568,7 @@ pub fn identify(
             }
             continue;
         }
-        identify_kind(det, target, opts, kind, single_codeless, &mut result, &mut by_face);
+        identify_kind(det, target, opts, kind, single_codeless, probe, &mut result, &mut by_face);
     }
     result.faces = by_face.into_values().collect();
     for f in &mut result.faces {
@@ -434,6 +585,7 @@ fn identify_kind(
     opts: &MatchOptions,
     kind: PatternKind,
     single_codeless: bool,
+    probe: Option<MarkProber<'_>>,
     result: &mut Identification,
     by_face: &mut BTreeMap<u32, FaceIdentification>,
 ) {
@@ -463,7 +615,7 @@ fn identify_kind(
     };
     let sizes: Vec<f64> =
         faces.iter().map(|(_, f)| f.mark_diameter() / step(f.pattern())).collect();
-    let marks = seen_marks(
+    let mut marks = seen_marks(
         det,
         &inks,
         on_nodes,
@@ -474,6 +626,27 @@ fn identify_kind(
         opts.mark_tolerance,
         &sizes,
     );
+    let mut unsure = vec![BTreeSet::new(); comps.len()];
+    // Probing needs one printed mark size for the kind's faces.
+    let same_size =
+        sizes.iter().all(|&d| sizes.first().is_some_and(|&e| (d - e).abs() <= 0.05 * e));
+    if let (Some(probe), Some(&size), true) = (probe, sizes.first(), same_size) {
+        for (ci, comp) in comps.iter().enumerate() {
+            let read = probe_marks(&comp.cells, &nodes, kind, 0.5 * size, probe);
+            marks[ci].retain(|m| !read.contains_key(&m.cell));
+            for (cell, r) in read {
+                match r {
+                    Probed::Mark { light } => {
+                        marks[ci].insert(SeenMark { cell, light });
+                    }
+                    Probed::Unsure => {
+                        unsure[ci].insert(cell);
+                    }
+                    Probed::Empty => {}
+                }
+            }
+        }
+    }
     let mut starts: BTreeMap<usize, usize> = BTreeMap::new();
     let rule = place::Rule {
         min_marks: opts.min_marks,
@@ -504,6 +677,7 @@ fn identify_kind(
         let view = CandidateView {
             cells: &cellset,
             marks: &marks[ci],
+            unsure: &unsure[ci],
             in_image: &in_image,
             axes: mean_axes(&comp.cells, &nodes),
         };

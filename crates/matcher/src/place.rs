@@ -79,6 +79,9 @@ pub(crate) struct CandidateView<'a> {
     pub cells: &'a BTreeSet<Cell>,
     /// Marks seen in it.
     pub marks: &'a BTreeSet<SeenMark>,
+    /// Mark cells whose image was probed but read neither as marked nor as unmarked: a face
+    /// mark there is no conflict.
+    pub unsure: &'a BTreeSet<Cell>,
     /// Whether the centre of a mark cell (candidate coordinates, as in [`SeenMark::cell`]) lies
     /// inside the image.
     pub in_image: &'a dyn Fn(Cell) -> bool,
@@ -219,7 +222,7 @@ fn score(
         let cd = unrotate(k, dd);
         let cell = if g.on_nodes { (cd.0 / 2, cd.1 / 2) } else { ((cd.0 - 1) / 2, (cd.1 - 1) / 2) };
         let visible = *visible_cache.entry(cell).or_insert_with(|| (view.in_image)(cell));
-        if visible && !view.marks.iter().any(|m| m.cell == cell) {
+        if visible && !view.unsure.contains(&cell) && !view.marks.iter().any(|m| m.cell == cell) {
             conflicts += 1;
         }
     }

@@ -12,9 +12,9 @@
 
 use std::collections::BTreeMap;
 
-use facetcal_detector::{Detections, DetectorOptions, GreyImage, detect};
+use facetcal_detector::{Detections, DetectorOptions, GreyImage, MarkProbe, detect, mark_samples};
 use facetcal_matcher::synthetic::random_view;
-use facetcal_matcher::{MatchOptions, identify};
+use facetcal_matcher::{MatchOptions, identify, identify_with};
 use facetcal_model::{Camera, Distortion, FeatureId, SeededRng, Target};
 use facetcal_render::{
     Background, GreyImage as RenderImage, Occluder, Optics, Photometry, Scene, render_view,
@@ -155,6 +155,9 @@ struct Tally {
     correct: usize,
     wrong: usize,
     detected: usize,
+    /// The same with the face code read by probing the image (`identify_with`).
+    probed_correct: usize,
+    probed_wrong: usize,
 }
 
 /// Renders, detects and identifies view `k` of target `name` under `case`.
@@ -178,11 +181,10 @@ fn run(name: &str, case: &Case, k: u64) -> Tally {
         .build()
         .unwrap();
     let view = render_view(&scene, 0).unwrap();
-    let det = detect(
-        &to_detector(&view.image),
-        &DetectorOptions { kinds: t.pattern_kinds(), ..DetectorOptions::default() },
-    )
-    .unwrap();
+    let grey = to_detector(&view.image);
+    let det =
+        detect(&grey, &DetectorOptions { kinds: t.pattern_kinds(), ..DetectorOptions::default() })
+            .unwrap();
     let truth: BTreeMap<FeatureId, Point2<f64>> =
         view.truth.visible.iter().map(|f| (f.id, f.pixel)).collect();
     let id = identify(&det, &t, &MatchOptions::default()).unwrap();
@@ -195,16 +197,28 @@ fn run(name: &str, case: &Case, k: u64) -> Tally {
             _ => tally.wrong += 1,
         }
     }
+    let probe = |p: &[MarkProbe]| mark_samples(&grey, p);
+    let probed = identify_with(&det, &t, &MatchOptions::default(), &probe).unwrap();
+    for p in probed.points() {
+        match truth.get(&p.id) {
+            Some(tp) if (tp - Point2::new(p.image[0], p.image[1])).norm() < 1.5 => {
+                tally.probed_correct += 1
+            }
+            _ => tally.probed_wrong += 1,
+        }
+    }
     let found = detected_points(&det);
     tally.detected = truth.values().filter(|t| found.iter().any(|p| (p - *t).norm() < 1.5)).count();
     eprintln!(
-        "{name:<13} {:<20} {:4} correct {:2} wrong {:4} detected {:4} visible; refused {:?}",
+        "{name:<13} {:<20} {:4} correct {:2} wrong; probed {:4} correct {:2} wrong; {:4} detected {:4} visible; refused (probed) {:?}",
         case.name,
         tally.correct,
         tally.wrong,
+        tally.probed_correct,
+        tally.probed_wrong,
         tally.detected,
         truth.len(),
-        id.rejected
+        probed.rejected
     );
     tally
 }
@@ -219,28 +233,36 @@ fn the_distortion_case_bows_a_line_by_five_percent_of_the_width() {
 #[test]
 fn rendered_views_across_the_robustness_range_are_identified_without_a_wrong_identity() {
     let (mut correct, mut wrong, mut detected) = (0, 0, 0);
-    let mut by_target: BTreeMap<&str, (usize, usize)> = BTreeMap::new();
+    let (mut pcorrect, mut pwrong) = (0, 0);
+    let mut by_target: BTreeMap<&str, (usize, usize, usize)> = BTreeMap::new();
     for name in TARGETS {
         for (k, case) in cases().iter().enumerate() {
             let t = run(name, case, k as u64);
             correct += t.correct;
             wrong += t.wrong;
             detected += t.detected;
+            pcorrect += t.probed_correct;
+            pwrong += t.probed_wrong;
             let e = by_target.entry(name).or_default();
             e.0 += t.correct;
-            e.1 += t.detected;
+            e.1 += t.probed_correct;
+            e.2 += t.detected;
         }
     }
     let frac = correct as f64 / detected as f64;
+    let pfrac = pcorrect as f64 / detected as f64;
     eprintln!("renders: {correct} correct, {wrong} wrong, {detected} detected, {frac:.4}");
-    for (name, (c, d)) in &by_target {
-        eprintln!("  {name}: {c} of {d}");
+    eprintln!("renders, probed marks: {pcorrect} correct, {pwrong} wrong, {pfrac:.4}");
+    for (name, (c, pc, d)) in &by_target {
+        eprintln!("  {name}: {c} of {d}, probed {pc} of {d}");
     }
     assert_eq!(wrong, 0);
-    // The issue asks for 99 % of the detected true features: NOT met. Measured 2026-12-02:
-    // 2172 of 6047 (0.359). The refused candidates have a correct lattice but contradict the
-    // face code by 2 to 4 marks: at this scale (marks of 6 to 10 px) and on steep faces the
-    // detector misses marks and reports others that are not there. This guards the measured
-    // level.
+    assert_eq!(pwrong, 0);
+    // The issue asks for 99 % of the detected true features: NOT met by the detector's marks
+    // alone. Measured 2026-12-02: 2172 of 6047 (0.359); at this scale (marks of 6 to 10 px) and
+    // on steep faces the detector misses marks and reports others that are not there. With
+    // the marks probed on the image (`identify_with`): 5653 of 6047 (0.935), 0 wrong. These
+    // guard the measured levels.
     assert!(frac >= 0.33, "identified {correct} of {detected} detected true features");
+    assert!(pfrac >= 0.92, "probed: identified {pcorrect} of {detected} detected true features");
 }
