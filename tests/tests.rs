@@ -6,6 +6,7 @@ mod util;
 mod bad_input;
 mod calibrate;
 mod detect;
+mod fleet;
 mod regress;
 mod render;
 mod solve;

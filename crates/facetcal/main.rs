@@ -11,6 +11,7 @@ mod calibrate;
 mod demo;
 mod detect;
 mod exit;
+mod fleet;
 mod output;
 mod regress;
 mod render;
@@ -34,6 +35,8 @@ enum Command {
     Demo(demo::DemoArgs),
     /// Calibrate a camera from a folder of images of a target.
     Calibrate(calibrate::CalibrateArgs),
+    /// Calibrate a fleet of cameras, one folder each, against a spec; merge shard outputs.
+    Fleet(fleet::FleetArgs),
     /// Check a target file or write its printable sheets.
     Target(target::TargetArgs),
     /// Find and identify a target's features in images.
@@ -56,6 +59,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Calibrate(a) => calibrate::run(a),
         Command::Demo(a) => demo::run(a),
+        Command::Fleet(a) => fleet::run(a),
         Command::Target(a) => target::run(a),
         Command::Detect(a) => detect::run(a),
         Command::Render(a) => render::run(a),
