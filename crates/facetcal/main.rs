@@ -18,8 +18,8 @@ mod render;
 mod solve;
 mod target;
 mod undistort;
-mod watch;
 mod verify;
+mod watch;
 
 /// Automatic target detection and camera calibration.
 #[derive(Parser, Debug)]
