@@ -52,15 +52,8 @@ pub struct CalibrationOptions {
     /// Also estimate the poses of faces 2..n relative to face 1 (target self-survey).
     #[arg(long)]
     survey_faces: bool,
-    /// Robust loss on each point's residual length.
-    #[arg(long, value_enum, default_value_t = LossArg::Huber)]
-    loss: LossArg,
-    /// Scale of the robust loss, pixels.
-    #[arg(long, default_value_t = 2.0)]
-    loss_scale: f64,
-    /// Keep every identified point (no outlier rejection).
-    #[arg(long)]
-    keep_all: bool,
+    #[command(flatten)]
+    robust: RobustOptions,
     /// Verdict: largest RMS reprojection error, pixels.
     #[arg(long, default_value_t = 1.0)]
     max_rms: f64,
@@ -98,6 +91,20 @@ enum HoldArg {
     PrincipalPoint,
 }
 
+/// The robust loss and outlier rejection (shared with `facetcal solve`).
+#[derive(Args, Debug, Clone)]
+pub struct RobustOptions {
+    /// Robust loss on each point's residual length.
+    #[arg(long, value_enum, default_value_t = LossArg::Huber)]
+    loss: LossArg,
+    /// Scale of the robust loss, pixels.
+    #[arg(long, default_value_t = 2.0)]
+    loss_scale: f64,
+    /// Keep every point (no outlier rejection).
+    #[arg(long)]
+    keep_all: bool,
+}
+
 #[derive(Clone, Copy, Debug, ValueEnum)]
 enum LossArg {
     /// Plain least squares.
@@ -106,6 +113,18 @@ enum LossArg {
     Huber,
     /// Cauchy's loss.
     Cauchy,
+}
+
+impl RobustOptions {
+    /// Sets the loss and the outlier test of solver options.
+    pub fn apply(&self, options: &mut Options) {
+        options.loss = match self.loss {
+            LossArg::Squared => Loss::Squared,
+            LossArg::Huber => Loss::Huber { scale_px: self.loss_scale },
+            LossArg::Cauchy => Loss::Cauchy { scale_px: self.loss_scale },
+        };
+        options.reject_sigmas = if self.keep_all { 0.0 } else { Options::default().reject_sigmas };
+    }
 }
 
 const RESULT: &str = "calibration.json";
@@ -125,22 +144,14 @@ pub fn settings(args: &CalibrationOptions) -> anyhow::Result<Settings> {
             ModelArg::BrownConrady => DistortionKind::BrownConrady,
             ModelArg::KannalaBrandt => DistortionKind::KannalaBrandt,
         },
-        solver: Options {
-            survey_faces: args.survey_faces,
-            loss: match args.loss {
-                LossArg::Squared => Loss::Squared,
-                LossArg::Huber => Loss::Huber { scale_px: args.loss_scale },
-                LossArg::Cauchy => Loss::Cauchy { scale_px: args.loss_scale },
-            },
-            reject_sigmas: if args.keep_all { 0.0 } else { Options::default().reject_sigmas },
-            ..Options::default()
-        },
+        solver: Options { survey_faces: args.survey_faces, ..Options::default() },
         load: LoadOptions {
             limits: DecodeLimits { max_pixels: args.max_pixels, ..DecodeLimits::default() },
             ..LoadOptions::default()
         },
         ..Settings::default()
     };
+    args.robust.apply(&mut s.solver);
     let free = &mut s.solver.free;
     free.skew = args.estimate.contains(&ExtraArg::Skew);
     free.k3 = args.estimate.contains(&ExtraArg::K3);

@@ -6,11 +6,12 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use anyhow::Context;
-use clap::{Args, ValueEnum};
+use clap::Args;
 use facetcal_model::files::CorrespondenceFile;
-use facetcal_solver::{Loss, Observation, Options, ViewObservations};
+use facetcal_solver::{Observation, Options, ViewObservations};
 use nalgebra::{Point2, Point3};
 
+use crate::calibrate::RobustOptions;
 use crate::{exit, output};
 
 #[derive(Args, Debug)]
@@ -23,25 +24,8 @@ pub struct SolveArgs {
     /// Replace an existing result file.
     #[arg(long)]
     force: bool,
-    /// Robust loss on each point's residual length.
-    #[arg(long, value_enum, default_value_t = LossArg::Huber)]
-    loss: LossArg,
-    /// Scale of the robust loss, pixels.
-    #[arg(long, default_value_t = 2.0)]
-    loss_scale: f64,
-    /// Keep every point (no outlier rejection).
-    #[arg(long)]
-    keep_all: bool,
-}
-
-#[derive(Clone, Copy, Debug, ValueEnum)]
-enum LossArg {
-    /// Plain least squares.
-    Squared,
-    /// Huber's loss.
-    Huber,
-    /// Cauchy's loss.
-    Cauchy,
+    #[command(flatten)]
+    robust: RobustOptions,
 }
 
 pub fn run(args: SolveArgs) -> anyhow::Result<ExitCode> {
@@ -50,17 +34,9 @@ pub fn run(args: SolveArgs) -> anyhow::Result<ExitCode> {
         .with_context(|| format!("cannot read correspondence file {}", path.display()))?;
     let file = CorrespondenceFile::from_json(&text)
         .with_context(|| format!("correspondence file {}", path.display()))?;
-    let options = Options {
-        free: file.free,
-        survey_faces: file.survey_faces,
-        loss: match args.loss {
-            LossArg::Squared => Loss::Squared,
-            LossArg::Huber => Loss::Huber { scale_px: args.loss_scale },
-            LossArg::Cauchy => Loss::Cauchy { scale_px: args.loss_scale },
-        },
-        reject_sigmas: if args.keep_all { 0.0 } else { Options::default().reject_sigmas },
-        ..Options::default()
-    };
+    let mut options =
+        Options { free: file.free, survey_faces: file.survey_faces, ..Options::default() };
+    args.robust.apply(&mut options);
     let views: Vec<ViewObservations> = file
         .views
         .iter()
