@@ -7,9 +7,9 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::Args;
-use facetcal_detector::{DetectorOptions, GreyImage, detect};
+use facetcal_detector::{DetectorOptions, GreyImage, MarkProbe, detect, mark_samples};
 use facetcal_imageio::LoadOptions;
-use facetcal_matcher::{DetectionsFile, Identification, MatchOptions, identify};
+use facetcal_matcher::{DetectionsFile, Identification, MatchOptions, identify_with};
 use facetcal_model::Target;
 use image::{Rgb, RgbImage};
 
@@ -50,7 +50,8 @@ fn detect_one(path: &Path, target: &Target, args: &DetectArgs) -> anyhow::Result
     let grey = GreyImage::from_dynamic(&loaded.image);
     let opts = DetectorOptions { kinds: target.pattern_kinds(), ..DetectorOptions::default() };
     let found = detect(&grey, &opts).with_context(|| format!("detecting in {}", path.display()))?;
-    let id = identify(&found, target, &MatchOptions::default())?;
+    let probe = |p: &[MarkProbe]| mark_samples(&grey, p);
+    let id = identify_with(&found, target, &MatchOptions::default(), &probe)?;
     let name = path.file_name().and_then(|s| s.to_str()).unwrap_or("image").to_string();
     let stem = path.file_stem().and_then(|s| s.to_str()).unwrap_or("image");
     let file = DetectionsFile::new(&name, [found.width, found.height], target, &id);

@@ -8,9 +8,11 @@
 
 use std::path::{Path, PathBuf};
 
-use facetcal_detector::{DetectorOptions, GreyImage, circle_centre_offset, detect};
+use facetcal_detector::{
+    DetectorOptions, GreyImage, MarkProbe, circle_centre_offset, detect, mark_samples,
+};
 use facetcal_imageio::LoadOptions;
-use facetcal_matcher::{Correspondence, DetectionKind, MatchOptions, identify};
+use facetcal_matcher::{Correspondence, DetectionKind, MatchOptions, identify_with};
 use facetcal_model::files::{
     CalibrationFile, InputRecord, PointPair, ViewPoints, ViewResult, ViewStatus,
 };
@@ -157,11 +159,13 @@ pub fn observe_image(path: &Path, target: &Target, settings: &Settings) -> Image
         Ok(f) => f,
         Err(e) => return fail("detect", format!("{}: {e}", path.display())),
     };
-    drop(grey);
-    let id = match identify(&found, target, &settings.matcher) {
+    // The face codes are read on the image itself where a lattice is found.
+    let probe = |p: &[MarkProbe]| mark_samples(&grey, p);
+    let id = match identify_with(&found, target, &settings.matcher, &probe) {
         Ok(i) => i,
         Err(e) => return fail("identify", format!("{}: {e}", path.display())),
     };
+    drop(grey);
     let detected = found.checker_corners.len() + found.dots.len() + 4 * found.squares.len();
     if id.point_count() == 0 {
         let refused: Vec<String> = id.rejected.iter().map(|r| r.to_string()).collect();
