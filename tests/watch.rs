@@ -169,6 +169,15 @@ fn assert_exactly_once(inbox: &Path, out: &Path, batches: &[(String, Batch, bool
     assert!(top.is_empty(), "left in the inbox: {top:?}");
 }
 
+/// Whether some service holds a claimed batch.
+fn claims_in_hand(inbox: &Path) -> bool {
+    std::fs::read_dir(inbox.join(".claimed")).is_ok_and(|mut dirs| {
+        dirs.any(|d| {
+            d.is_ok_and(|d| std::fs::read_dir(d.path()).is_ok_and(|mut e| e.next().is_some()))
+        })
+    })
+}
+
 /// A small seeded generator (Knuth's MMIX linear congruential constants).
 struct Lcg(u64);
 
@@ -202,14 +211,20 @@ fn sigkill_at_random_moments_leaves_every_batch_finished_exactly_once() {
             batches.push((name, files, good));
             std::thread::sleep(Duration::from_millis(rng.below(100)));
         }
-        // Within the time a batch takes, so that most kills land in the middle of one.
-        std::thread::sleep(Duration::from_millis(rng.below(400)));
+        // Three rounds in four wait until a batch is claimed, so that the kill lands in the
+        // middle of one however fast the machine is; the fourth kills at a random moment.
+        if round % 4 != 3 {
+            let start = Instant::now();
+            while !claims_in_hand(&inbox) && start.elapsed() < Duration::from_secs(20) {
+                std::thread::sleep(Duration::from_millis(2));
+            }
+            std::thread::sleep(Duration::from_millis(rng.below(40)));
+        } else {
+            std::thread::sleep(Duration::from_millis(rng.below(400)));
+        }
         child.kill().unwrap(); // SIGKILL
         child.wait().unwrap();
-        if std::fs::read_dir(inbox.join(".claimed"))
-            .unwrap()
-            .any(|d| std::fs::read_dir(d.unwrap().path()).is_ok_and(|mut e| e.next().is_some()))
-        {
+        if claims_in_hand(&inbox) {
             kills_in_flight += 1;
         }
         child = watcher(&inbox, &out, &["--jobs", "2"]);
