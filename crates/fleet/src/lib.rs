@@ -17,6 +17,8 @@
 //! assert_eq!(shard.contains("cam-007"), Shard::of("cam-007", 3) == 1);
 //! ```
 #![deny(missing_docs)]
+// Library code never unwraps: input-derived failures are typed errors.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 pub mod error;
 pub mod file;
