@@ -125,7 +125,7 @@ struct Shared<'a> {
 }
 
 /// One camera, start to end; only a failure to write its results is an error.
-fn calibrate_camera(id: &str, dir: &Path, s: &Shared) -> anyhow::Result<CameraEntry> {
+fn run_one_camera(id: &str, dir: &Path, s: &Shared) -> anyhow::Result<CameraEntry> {
     let result = format!("{id}/{}", CAMERA_FILES[0]);
     let not_calibrated = |reason: String| Ok(camera_entry(id, Err(&reason), s.spec, &result));
     let paths = match list_images(dir) {
@@ -245,7 +245,7 @@ pub fn run(args: FleetArgs) -> anyhow::Result<ExitCode> {
         force: args.force,
     };
     let entries: Vec<anyhow::Result<CameraEntry>> =
-        cameras.par_iter().map(|(id, dir)| calibrate_camera(id, dir, &shared)).collect();
+        cameras.par_iter().map(|(id, dir)| run_one_camera(id, dir, &shared)).collect();
     let entries = entries.into_iter().collect::<anyhow::Result<Vec<_>>>()?;
     let header = FleetHeader {
         program: program(),

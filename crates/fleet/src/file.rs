@@ -116,7 +116,7 @@ impl FleetFile {
     /// The file's text, pretty-printed. Refuses a non-finite number, naming the field.
     pub fn to_json(&self) -> Result<String, FleetError> {
         let value = serde_json::to_value(self).map_err(|e| ModelError::Parse(e.to_string()))?;
-        if let Some(path) = find_null(&value, String::new()) {
+        if let Some(path) = facetcal_model::files::first_null_path(&value) {
             return Err(ModelError::field(path, "is not a finite number").into());
         }
         Ok(serde_json::to_string_pretty(&value).map_err(|e| ModelError::Parse(e.to_string()))?)
@@ -174,20 +174,6 @@ pub fn csv_field(s: &str) -> String {
         format!("\"{}\"", s.replace('"', "\"\""))
     } else {
         s.to_string()
-    }
-}
-
-fn find_null(v: &serde_json::Value, path: String) -> Option<String> {
-    match v {
-        serde_json::Value::Null => Some(if path.is_empty() { ".".into() } else { path }),
-        serde_json::Value::Array(a) => {
-            a.iter().enumerate().find_map(|(i, x)| find_null(x, format!("{path}[{i}]")))
-        }
-        serde_json::Value::Object(o) => o.iter().find_map(|(k, x)| {
-            let p = if path.is_empty() { k.clone() } else { format!("{path}.{k}") };
-            find_null(x, p)
-        }),
-        _ => None,
     }
 }
 

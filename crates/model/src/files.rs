@@ -476,6 +476,13 @@ fn to_checked_json<T: Serialize>(v: &T) -> Result<String, ModelError> {
     serde_json::to_string_pretty(&value).map_err(|e| ModelError::Parse(e.to_string()))
 }
 
+/// The JSON path of the first `null` in a serialised value (`views[3].rms_px`), if any. The
+/// files of this crate skip absent optional fields, so in them a `null` can only be a number
+/// that was not finite.
+pub fn first_null_path(v: &serde_json::Value) -> Option<String> {
+    find_null(v, String::new())
+}
+
 fn find_null(v: &serde_json::Value, path: String) -> Option<String> {
     match v {
         serde_json::Value::Null => Some(if path.is_empty() { ".".into() } else { path }),
