@@ -149,3 +149,57 @@ fn sheets_are_not_overwritten_without_force() {
     forced.push("--force");
     assert_eq!(facetcal(dir.path(), &forced).code, 0);
 }
+
+/// Marks that one placement of a face's code on a (possibly other) face leaves on marks of the
+/// same ink: the most over every quarter turn and shift, the identity on the same face left
+/// out. Partial views are placed by rotation and shift, so a code that keeps three or more
+/// marks in place under one of them is ambiguous as soon as an occluder or the border hides
+/// the marks that differ (the bundled square grid's first code kept 4 of its 5 marks under a
+/// half turn, and an occluded centre made a view ambiguous).
+fn most_marks_kept(a: &facetcal_model::Face, b: &facetcal_model::Face, same: bool) -> usize {
+    let cells = |f: &facetcal_model::Face| -> Vec<(i64, i64, facetcal_model::Ink)> {
+        f.marks().iter().map(|&(r, c)| (r as i64, c as i64, f.mark_ink(r, c))).collect()
+    };
+    let (ma, mb) = (cells(a), cells(b));
+    let turn = |k: u8, (r, c): (i64, i64)| (0..k).fold((r, c), |(r, c), _| (c, -r));
+    let mut most = 0;
+    for k in 0..4u8 {
+        for &(ra, ca, _) in &ma {
+            for &(rb, cb, _) in &mb {
+                let t = turn(k, (ra, ca));
+                let shift = (rb - t.0, cb - t.1);
+                if same && k == 0 && shift == (0, 0) {
+                    continue;
+                }
+                let kept = ma
+                    .iter()
+                    .filter(|&&(r, c, ink)| {
+                        let t = turn(k, (r, c));
+                        let p = (t.0 + shift.0, t.1 + shift.1);
+                        mb.iter().any(|&(r2, c2, ink2)| (r2, c2) == p && ink2 == ink)
+                    })
+                    .count();
+                most = most.max(kept);
+            }
+        }
+    }
+    most
+}
+
+/// Design rule for the bundled codes (ours, stated in DEVELOPERS.md "Face codes"): no quarter
+/// turn plus shift keeps more than 2 marks of a code on marks of the same or another face of
+/// the same kind, so every partial view that shows 3 marks of a face is placed by its code.
+#[test]
+fn bundled_face_codes_keep_at_most_two_marks_under_any_other_placement() {
+    for name in BUNDLED {
+        let target = facetcal_model::Target::load(&bundled_target(name)).unwrap();
+        let faces = target.faces();
+        for a in faces {
+            for b in faces.iter().filter(|b| b.pattern().kind() == a.pattern().kind()) {
+                let same = a.id() == b.id();
+                let kept = most_marks_kept(a, b, same);
+                assert!(kept <= 2, "{name}: face {} on face {} keeps {kept} marks", a.id(), b.id());
+            }
+        }
+    }
+}

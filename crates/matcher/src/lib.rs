@@ -301,14 +301,46 @@ enum Probed {
     Unsure,
 }
 
-/// Normalised mark score at or above which a cell reads as marked, and below which it reads as
-/// empty; between them it is unsure. A printed mark scores 1 on a sharp image and about 0.5
-/// under a blur of the mark's own radius, an empty cell 0 (negative where its ring catches the
-/// neighbours' ink).
-const MARKED: f64 = 0.35;
-const EMPTY: f64 = 0.15;
+/// Lowest normalised mark score that reads as marked. A printed mark scores 1 on a sharp
+/// image; under a blur of the mark's own radius the blurred mark also darkens its ring and it
+/// scores 0.2 to 0.3. An empty cell scores 0 (negative where its ring catches the neighbours'
+/// ink), spread by the image noise: below this floor a blurred mark and noise cannot be told
+/// apart.
+const MARKED_FLOOR: f64 = 0.15;
+/// A cell reads as marked above `NOISE_FACTOR` times the spread of its candidate's scores (most
+/// cells of a candidate are empty, so their robust spread is the score noise), and as empty
+/// below half that threshold; between the two it is unsure.
+const NOISE_FACTOR: f64 = 6.0;
+/// Largest spread (highest minus lowest) of a cell's reference ink levels, as a fraction of its
+/// contrast, for the cell to be read. Across a cell a 3:1 illumination gradient changes the
+/// levels by a few percent of the contrast; an occluder edge by half of it or more.
+const LEVEL_SPREAD: f64 = 0.25;
 /// Smallest contrast between a cell's ground and the mark ink (full scale 1) worth reading.
 const MIN_CONTRAST: f64 = 0.04;
+
+/// The marked and empty thresholds of one candidate from the scores of all its cells: marked
+/// at `max(MARKED_FLOOR, NOISE_FACTOR * s)`, empty below half of that, where `s` is 1.4826 x
+/// the median absolute deviation of the scores (the common-practice robust estimate of a
+/// normal spread).
+fn mark_thresholds(scores: &[f64]) -> (f64, f64) {
+    let median = |v: &mut Vec<f64>| -> f64 {
+        v.sort_by(f64::total_cmp);
+        let n = v.len();
+        if n == 0 {
+            0.0
+        } else if n % 2 == 1 {
+            v[n / 2]
+        } else {
+            0.5 * (v[n / 2 - 1] + v[n / 2])
+        }
+    };
+    let mut v: Vec<f64> = scores.iter().copied().filter(|s| s.is_finite()).collect();
+    let m = median(&mut v);
+    let mut dev: Vec<f64> = v.iter().map(|s| (s - m).abs()).collect();
+    let spread = 1.4826 * median(&mut dev);
+    let marked = (NOISE_FACTOR * spread).max(MARKED_FLOOR);
+    (marked, 0.5 * marked)
+}
 
 /// Reads every mark cell of one candidate lattice on the image. A cell's score is
 /// `(inner - ring) / (ink - ring)`: its inner disc against its own ground, over the contrast of
@@ -385,7 +417,8 @@ fn probe_marks(
     }
     let samples = probe(&requests);
     let get = |k: usize| samples.get(k).copied().flatten();
-    let mut out = BTreeMap::new();
+    // Per target: its score and mark ink, or `None` where it cannot be read.
+    let mut read: Vec<(Cell, Option<(f64, bool)>)> = Vec::with_capacity(plan.len());
     for (c, own_at, refs) in plan {
         let Some(own) = get(own_at) else { continue };
         let levels: Vec<f64> = refs
@@ -395,26 +428,34 @@ fn probe_marks(
             .filter(|v| v.is_finite())
             .collect();
         if levels.len() < 2 || !(own.inner.is_finite() && own.ring.is_finite()) {
-            out.insert(c, Probed::Unsure);
+            read.push((c, None));
             continue;
         }
         let ink = levels.iter().sum::<f64>() / levels.len() as f64;
         let contrast = ink - own.ring;
-        let read = if contrast.abs() < MIN_CONTRAST {
-            Probed::Unsure
-        } else {
-            let score = (own.inner - own.ring) / contrast;
-            if score >= MARKED {
-                Probed::Mark { light: contrast > 0.0 }
-            } else if score < EMPTY {
-                Probed::Empty
-            } else {
-                Probed::Unsure
-            }
-        };
-        out.insert(c, read);
+        let score = (own.inner - own.ring) / contrast;
+        // Reference places that disagree are not all the pattern's ink: an occluder, a shadow
+        // edge or glare crosses the cell, and its reading would be that edge's.
+        let (lo, hi) = levels
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| (lo.min(v), hi.max(v)));
+        let readable = contrast.abs() >= MIN_CONTRAST
+            && score.is_finite()
+            && hi - lo <= LEVEL_SPREAD * contrast.abs();
+        read.push((c, readable.then_some((score, contrast > 0.0))));
     }
-    out
+    let scores: Vec<f64> = read.iter().filter_map(|(_, r)| r.map(|(s, _)| s)).collect();
+    let (marked, empty) = mark_thresholds(&scores);
+    read.into_iter()
+        .map(|(c, r)| {
+            let probed = match r {
+                Some((score, light)) if score >= marked => Probed::Mark { light },
+                Some((score, _)) if score < empty => Probed::Empty,
+                _ => Probed::Unsure,
+            };
+            (c, probed)
+        })
+        .collect()
 }
 
 /// Removes the nodes of `cells` that fail the leave-one-out residual test, worst first within
@@ -464,11 +505,49 @@ fn mean_axes(cells: &BTreeMap<Cell, usize>, nodes: &[Node]) -> [Vector2<f64>; 2]
     out
 }
 
+/// Largest corner deviation a square's detected outline may have from the outline its
+/// neighbours predict, once a common shift and scale are taken out, as a fraction of the
+/// predicted side (or 4 times the square's own corner sigma, if larger). Detected outlines grow
+/// or shrink together with the encoding and the lighting (5 % of the side at 50 % vignetting),
+/// which the scale absorbs; rendered squares then deviate by under 2 % of the side, and
+/// synthetic ones under strong fisheye distortion by up to 6 % beyond their noise. A square
+/// cut by an occluder along a line parallel to a side is still a clean quadrilateral, but 10 %
+/// or more out of shape: its corners are not the printed ones.
+const SHAPE_TOL: f64 = 0.06;
+
+/// How far `detected` departs in shape from `predicted` (corners in the same order): the
+/// largest corner residual after the least-squares shift and scale, and the predicted mean
+/// side.
+fn shape_deviation(detected: &[Point2<f64>; 4], predicted: &[Point2<f64>]) -> Option<(f64, f64)> {
+    let centre =
+        |v: &mut dyn Iterator<Item = Vector2<f64>>| v.fold(Vector2::zeros(), |a, p| a + p) / 4.0;
+    let cd = centre(&mut detected.iter().map(|p| p.coords));
+    let cp = centre(&mut predicted.iter().map(|p| p.coords));
+    let (mut num, mut den) = (0.0, 0.0);
+    for (d, p) in detected.iter().zip(predicted) {
+        num += (d.coords - cd).dot(&(p.coords - cp));
+        den += (p.coords - cp).norm_squared();
+    }
+    if den.is_nan() || den <= 0.0 {
+        return None;
+    }
+    let scale = num / den;
+    let dev = detected
+        .iter()
+        .zip(predicted)
+        .map(|(d, p)| ((d.coords - cd) - scale * (p.coords - cp)).norm())
+        .fold(0.0, f64::max);
+    let side = (0..4).map(|q| (predicted[(q + 1) % 4] - predicted[q]).norm()).sum::<f64>() / 4.0;
+    (dev.is_finite() && side > 0.0).then_some((dev, side))
+}
+
 /// For a square node, the index of the detected corner that is face corner 0 (the detected
 /// corners are clockwise in the image, as the face corners are on a front-facing face). The
 /// node's lattice neighbours predict the corners, and each detected corner must lie within `tol`
 /// lattice spacings of its predicted place (`half` is half the side in lattice units), which
-/// refuses a square of the wrong size or angle sitting where a missing square would be.
+/// refuses a square of the wrong size or angle sitting where a missing square would be, and the
+/// outline must have the predicted shape within [`SHAPE_TOL`], which refuses a square cut by an
+/// occluder.
 #[allow(clippy::too_many_arguments)]
 fn square_start(
     det: &Detections,
@@ -498,7 +577,10 @@ fn square_start(
         })?;
         let ok =
             (0..4).all(|q| (sq.corners[(start + q) % 4] - predicted[q]).norm() <= tol * spacing);
-        return ok.then_some(start);
+        let detected: [Point2<f64>; 4] = std::array::from_fn(|q| sq.corners[(start + q) % 4]);
+        let shaped = shape_deviation(&detected, &predicted)
+            .is_some_and(|(dev, side)| dev <= (SHAPE_TOL * side).max(4.0 * sq.sigma));
+        return (ok && shaped).then_some(start);
     }
     // Without neighbours to predict the corners the order is a guess: leave it out.
     None
@@ -833,5 +915,39 @@ fn identify_kind(
         if !owner.contains_key(&k) {
             result.left_out.push(LeftOut { detection: r, reason: LeftOutReason::NoLattice });
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Thresholds from the median absolute deviation (scaled by 1.4826, the common-practice
+    /// factor that makes it a normal distribution's standard deviation), worked by hand.
+    #[test]
+    fn mark_thresholds_follow_the_score_noise_above_a_floor() {
+        // Median 0.05; deviations 0.15 0.1 0.05 0 0.05 0.75 0.85, median 0.1.
+        let (marked, empty) = mark_thresholds(&[-0.1, -0.05, 0.0, 0.05, 0.1, 0.8, 0.9]);
+        assert!((marked - 6.0 * 0.14826).abs() < 1e-12, "{marked}");
+        assert!((empty - 3.0 * 0.14826).abs() < 1e-12, "{empty}");
+        // Median 0; deviations 0 0 0 0.01 0.01 0.9, median 0.005: 6 x 0.0074 is below the floor.
+        let (marked, empty) = mark_thresholds(&[0.0, 0.0, 0.0, 0.01, -0.01, 0.9]);
+        assert_eq!((marked, empty), (MARKED_FLOOR, 0.5 * MARKED_FLOOR));
+        assert_eq!(mark_thresholds(&[f64::NAN]), (MARKED_FLOOR, 0.5 * MARKED_FLOOR));
+    }
+
+    /// A square cut along a line parallel to a side (a 24 px square seen 19 px deep) is out of
+    /// shape; the same square grown by 1 px on every side (an outline bias) is not.
+    #[test]
+    fn shape_deviation_takes_out_scale_but_not_a_cut() {
+        let sq = |x0: f64, y0: f64, x1: f64, y1: f64| {
+            [Point2::new(x0, y0), Point2::new(x1, y0), Point2::new(x1, y1), Point2::new(x0, y1)]
+        };
+        let predicted = sq(0.0, 0.0, 24.0, 24.0);
+        let (dev, side) = shape_deviation(&sq(-1.0, -1.0, 25.0, 25.0), &predicted).unwrap();
+        assert!(dev < 1e-12 && (side - 24.0).abs() < 1e-12, "{dev} {side}");
+        let (dev, side) = shape_deviation(&sq(0.0, 0.0, 24.0, 19.0), &predicted).unwrap();
+        assert!(dev > SHAPE_TOL * side, "{dev} {side}");
+        assert!(shape_deviation(&[Point2::origin(); 4], &[Point2::origin(); 4]).is_none());
     }
 }

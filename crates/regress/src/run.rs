@@ -3,8 +3,11 @@
 
 use std::time::Instant;
 
-use facetcal_detector::{DetectorOptions, GreyImage as DetectorImage, correct_dot_centre, detect};
-use facetcal_matcher::{MatchOptions, identify};
+use facetcal_detector::{
+    DetectorOptions, GreyImage as DetectorImage, MarkProbe, correct_dot_centre, detect,
+    mark_samples,
+};
+use facetcal_matcher::{MatchOptions, identify_with};
 use facetcal_model::{Camera, Face, FeatureId, PatternKind, PatternSpec, Pose};
 use facetcal_render::photometry::quantise;
 use facetcal_render::{GreyImage as RenderImage, ViewTruth, render_view_noiseless};
@@ -356,7 +359,9 @@ pub fn run_scenario(
             let start = Instant::now();
             let found = detect(&input.image, &opts)
                 .map_err(|source| RegressError::Detect { scenario: s.name.clone(), source })?;
-            let id = identify(&found, target, &MatchOptions::default())
+            // Marks read on the image, as `facetcal detect` and `calibrate` read them.
+            let probe = |p: &[MarkProbe]| mark_samples(&input.image, p);
+            let id = identify_with(&found, target, &MatchOptions::default(), &probe)
                 .map_err(|source| RegressError::Identify { scenario: s.name.clone(), source })?;
             let ms = start.elapsed().as_secs_f64() * 1e3;
             let mut points = identified_points(&id);
