@@ -62,7 +62,9 @@ pub fn detect(img: &GreyImage, opts: &DetectorOptions) -> Result<Detections, Det
     // a square, within 2.5 diameters of a checker corner (a cell-centre disc), or among
     // neighbours of its ink at least 1.8 times its diameter (a dot grid's gap mark).
     let want_squares = opts.wants(PatternKind::SquareGrid);
-    let (blobs, squares) = blobs::detect_blobs(img, opts, want_squares, noise);
+    // Without a dot grid, a dark blob that is round but not quite is a blurred square first.
+    let dark_dots = opts.wants(PatternKind::DotGrid);
+    let (blobs, squares) = blobs::detect_blobs(img, opts, want_squares, dark_dots, noise);
     let corners: Vec<_> = out.checker_corners.iter().map(|c| c.position).collect();
     let (dots, marks) = blobs::classify(blobs, &squares, &corners);
     if opts.wants(PatternKind::DotGrid) {

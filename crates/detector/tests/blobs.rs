@@ -15,6 +15,10 @@ const POSES: [(f64, f64, f64); 4] =
     [(0.0, 0.0, 3.0), (25.0, 30.0, 10.0), (45.0, 0.0, 7.0), (45.0, 90.0, -25.0)];
 
 fn scene_of(target: Target, dist: f64) -> Scene {
+    scene_blurred(target, dist, 1.0)
+}
+
+fn scene_blurred(target: Target, dist: f64, psf: f64) -> Scene {
     let (fw, fh) = target.faces()[0].size();
     let centre = Point2::new(fw / 2.0, fh / 2.0);
     let poses = POSES
@@ -23,7 +27,7 @@ fn scene_of(target: Target, dist: f64) -> Scene {
         .collect();
     Scene::builder(target, standard_camera())
         .poses(poses)
-        .psf_sigma_px(1.0)
+        .psf_sigma_px(psf)
         .noise_sigma(2.0)
         .seed(11)
         .build()
@@ -156,4 +160,43 @@ fn square_corners() {
     // The reported sigma (from the line fits' residuals) against the errors measured on the
     // renderer's exact corners: consistent within a factor 1.5 either way.
     assert!((1.0 / 1.5..=1.5).contains(&ratio), "error / sigma {ratio}");
+}
+
+/// The detector issue's strongest blur, PSF sigma 2.5 px, on the standard scene's square grid
+/// (sides of 29 to 34 px): corners round over a third of the side and the outline reads as
+/// nearly round, yet every square is found and no corner is invented. Accuracy is reported
+/// and guarded, not a target of the issue: measured recall 1.0, RMS 0.131 px (views 0.083,
+/// 0.108, and the two 45-degree views 0.170 and 0.144). Before the square's final fit between
+/// its fitted corners and the rounded-square test, a view at 45 degrees lost 17 of its 70
+/// squares and the corners found were 0.2 to 0.6 px off.
+#[test]
+fn square_corners_under_a_strong_blur() {
+    let scene = scene_blurred(bundled("square-grid.json"), 650.0, 2.5);
+    let opts = DetectorOptions::for_kind(PatternKind::SquareGrid);
+    let mut all = Errors::default();
+    for i in 0..POSES.len() {
+        let view = render_view(&scene, i).unwrap();
+        let det = detect(&to_detector(&view.image), &opts).unwrap();
+        let found: Vec<Point2<f64>> = det.squares.iter().flat_map(|s| s.corners).collect();
+        let mut e = Errors::default();
+        for t in &view.truth.visible {
+            e.total += 1;
+            all.total += 1;
+            if let Some(f) = nearest(t.pixel, &found, 3.0) {
+                e.add(f - t.pixel);
+                all.add(f - t.pixel);
+            }
+        }
+        println!(
+            "blur 2.5, view {i}: squares {} matched {}/{} rms {:.4}",
+            det.squares.len(),
+            e.n,
+            e.total,
+            e.rms()
+        );
+        assert_eq!(found.len(), e.n, "every corner is a true corner");
+    }
+    println!("squares at blur 2.5: recall {:.4} rms {:.4}", all.recall(), all.rms());
+    assert!(all.recall() >= 0.995, "recall {}", all.recall());
+    assert!(all.rms() <= 0.2, "rms {}", all.rms());
 }

@@ -262,10 +262,9 @@ fn rendered_views_across_the_robustness_range_are_identified_without_a_wrong_ide
     // not reach it (measured 2026-12-02: 2172 of 6047, 0.359): at this scale (marks of 6 to
     // 10 px) and on steep faces the detector misses marks and reports others that are not
     // there. With the marks probed on the image (`identify_with`, what `facetcal` uses):
-    // 5997 of 6047 (0.9917), 0 wrong. The 50 left: a 14-node piece of the box corner at PSF
-    // 2.5 on which no mark can be read (refused as ambiguous, rightly; 32 features), the 4
-    // squares the detector finds at PSF 2.5 (too few for a lattice; 16) and 2 dots cut by the
-    // occluder.
+    // 6297 of 6331 (0.9946), 0 wrong. The 34 left: a 14-node piece of the box corner at PSF
+    // 2.5 on which no mark can be read (refused as ambiguous, rightly; 32 features) and 2 dots
+    // cut by the occluder.
     assert!(frac >= 0.33, "identified {correct} of {detected} detected true features");
     assert!(pfrac >= 0.99, "probed: identified {pcorrect} of {detected} detected true features");
 }
