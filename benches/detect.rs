@@ -4,6 +4,8 @@
 //!   and face-code marks), one thread (the detector uses none of its own);
 //!   `checker/corners_only_1920x1080` the corner stage alone. 1920 x 1080 is the figure of the contributor
 //!   guide; 960 x 540 and a 2 x 2 tiling at 3840 x 2160 show the cost against the pixel count.
+//! - `squares/1920x1080`: `detect` on a rendered square grid, square kind (squares and their
+//!   marks), one thread.
 //! - `blur/*`: the detector's separable `f32` Gaussian against
 //!   `imageproc::filter::gaussian_blur_f32`, the reason the detector has its own.
 //! - `regions/*`: the blob stage's local-mean threshold and 8-connected labelling
@@ -47,14 +49,14 @@ unsafe impl GlobalAlloc for Counting {
 static ALLOC: Counting = Counting;
 
 fn checker_image(width: u32, height: u32) -> GreyImage {
+    target_image("checkerboard", width, height)
+}
+
+/// A bundled target (faces of about 280 x 220 mm) filling most of the height, slightly turned.
+fn target_image(name: &str, width: u32, height: u32) -> GreyImage {
     let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
-    let path = ["targets/checkerboard.json", "../../targets/checkerboard.json"]
-        .iter()
-        .map(|p| root.join(p))
-        .find(|p| p.exists())
-        .expect("bundled checkerboard target");
+    let path = root.join(format!("targets/{name}.json"));
     let target = Target::load(&path).expect("bundled target loads");
-    // The 280 x 220 mm face filling most of the height, slightly turned.
     let f = height as f64 * 1.1;
     let cam = Camera::pinhole(
         width,
@@ -122,6 +124,18 @@ fn bench(c: &mut Criterion) {
     g.bench_function("corners_only_1920x1080", |b| {
         b.iter(|| facetcal_detector::checker::detect_checker_corners(&hd, &opts))
     });
+    g.finish();
+
+    // Square grid (70 squares of about 75 px, every square's four sides fitted three times).
+    let squares = target_image("square-grid", 1920, 1080);
+    let square_opts = DetectorOptions::for_kind(PatternKind::SquareGrid);
+    println!(
+        "square-grid 1920x1080: {} squares",
+        detect(&squares, &square_opts).expect("detects").squares.len()
+    );
+    let mut g = c.benchmark_group("squares");
+    g.sample_size(20);
+    g.bench_function("1920x1080", |b| b.iter(|| detect(&squares, &square_opts).expect("detects")));
     g.finish();
 
     let mut g = c.benchmark_group("blur");

@@ -489,17 +489,14 @@ fn measure_dot(img: &GreyImage, c: &Component, noise: f64) -> Option<Blob> {
 /// `[0, 1)`: R. Keys, "Cubic convolution interpolation for digital image processing", IEEE
 /// TASSP 29(6), 1981.
 fn keys_weights(t: f64) -> [f64; 4] {
-    let w = |x: f64| {
-        let x = x.abs();
-        if x <= 1.0 {
-            (1.5 * x - 2.5) * x * x + 1.0
-        } else if x < 2.0 {
-            ((-0.5 * x + 2.5) * x - 4.0) * x + 2.0
-        } else {
-            0.0
-        }
-    };
-    [w(t + 1.0), w(t), w(1.0 - t), w(2.0 - t)]
+    // The kernel's four pieces at distances 1 + t, t, 1 - t and 2 - t, expanded in t.
+    let (t2, t3) = (t * t, t * t * t);
+    [
+        0.5 * (-t3 + 2.0 * t2 - t),
+        0.5 * (3.0 * t3 - 5.0 * t2 + 2.0),
+        0.5 * (-3.0 * t3 + 4.0 * t2 + t),
+        0.5 * (t3 - t2),
+    ]
 }
 
 /// Grey level at a subpixel point by cubic convolution, border replicated. Bilinear
@@ -512,7 +509,22 @@ fn sample_cubic(img: &GreyImage, x: f64, y: f64) -> f64 {
     let (x0, y0) = (x.floor(), y.floor());
     let (wx, wy) = (keys_weights(x - x0), keys_weights(y - y0));
     let (xi, yi) = (x0.clamp(-4.0, 1e9) as isize, y0.clamp(-4.0, 1e9) as isize);
+    let (w, h) = (img.width() as isize, img.height() as isize);
     let mut s = 0.0;
+    if xi >= 1 && yi >= 1 && xi + 2 < w && yi + 2 < h {
+        // Inside: four rows of four pixels, no clamping.
+        let data = img.data();
+        for (j, &b) in wy.iter().enumerate() {
+            let at = ((yi + j as isize - 1) * w + xi - 1) as usize;
+            let r = &data[at..at + 4];
+            let row = wx[0] * r[0] as f64
+                + wx[1] * r[1] as f64
+                + wx[2] * r[2] as f64
+                + wx[3] * r[3] as f64;
+            s += b * row;
+        }
+        return s;
+    }
     for (j, &b) in wy.iter().enumerate() {
         let mut row = 0.0;
         for (i, &a) in wx.iter().enumerate() {
@@ -534,29 +546,48 @@ fn profile_crossing(
     reach: f64,
     level: Option<f64>,
 ) -> Option<(f64, f64, f64)> {
-    // Samples every 0.25 px from -reach (inside, ink) to +reach (outside, ground).
+    // The profile is read every 0.25 px from -reach (inside, ink) to +reach (outside,
+    // ground): first every 1 px to find where it crosses the level, then the three quarter
+    // points inside that pixel. (More than one crossing means this is no clean edge.)
     let steps = (reach / 0.25).round() as i32;
-    let mut vals = [0.0f64; 2 * 24 + 1];
-    let vals = &mut vals[..(2 * steps + 1) as usize];
-    for (v, k) in vals.iter_mut().zip(-steps..=steps) {
+    let at = |k: i32| {
         let t = k as f64 * 0.25;
-        *v = sample_cubic(img, p.x + t * n.x, p.y + t * n.y);
-    }
-    let lo = *vals.first()?;
-    let hi = *vals.last()?;
+        sample_cubic(img, p.x + t * n.x, p.y + t * n.y)
+    };
+    let lo = at(-steps);
+    let hi = at(steps);
     if hi - lo < 0.02 {
         return None;
     }
     let mid = level.unwrap_or(0.5 * (lo + hi));
+    let mut bracket = None;
+    let mut prev = (-steps, lo);
+    let mut k = -steps;
+    while k < steps {
+        let next = (k + 4).min(steps);
+        let v = if next == steps { hi } else { at(next) };
+        if (prev.1 - mid) * (v - mid) <= 0.0 && v != prev.1 {
+            if bracket.is_some() {
+                return None;
+            }
+            bracket = Some((prev, (next, v)));
+        }
+        prev = (next, v);
+        k = next;
+    }
+    let ((k0, v0), (k1, v1)) = bracket?;
     let mut found = None;
-    for k in 0..vals.len() - 1 {
-        if (vals[k] - mid) * (vals[k + 1] - mid) <= 0.0 && vals[k + 1] != vals[k] {
+    let mut last = (k0, v0);
+    for k in k0 + 1..=k1 {
+        let v = if k == k1 { v1 } else { at(k) };
+        if (last.1 - mid) * (v - mid) <= 0.0 && v != last.1 {
             if found.is_some() {
                 return None;
             }
-            let f = (mid - vals[k]) / (vals[k + 1] - vals[k]);
-            found = Some((k as f64 + f - steps as f64) * 0.25);
+            let f = (mid - last.1) / (v - last.1);
+            found = Some((last.0 as f64 + f) * 0.25);
         }
+        last = (k, v);
     }
     found.map(|o| (o, lo, hi))
 }
@@ -644,46 +675,31 @@ fn measure_square(
     inv: &Matrix2<f64>,
 ) -> Option<SquareOutline> {
     // Coarse corners: the farthest pixels in whitened space, one per quadrant of angle around
-    // the farthest one.
+    // the farthest one. Angles in image space are not 90 degrees apart under perspective;
+    // sectors are taken in whitened space, where an affine square is a square.
+    let l = nalgebra::Cholesky::new(*inv)?.l();
     let mut pts: Vec<(f64, f64, Point2<f64>)> = Vec::new();
     for run in runs {
         let y = run.y as usize;
         for x in run.x0 as usize..=run.x1 as usize {
             let d = Vector2::new(x as f64 - c.mean.x, y as f64 - c.mean.y);
-            let r = d.dot(&(inv * d));
-            pts.push((r, d.y.atan2(d.x), Point2::new(x as f64, y as f64)));
+            let u = l.transpose() * d;
+            pts.push((u.norm_squared(), u.y.atan2(u.x), Point2::new(x as f64, y as f64)));
         }
     }
-    let first = pts.iter().max_by(|a, b| a.0.total_cmp(&b.0))?.1;
+    let a0 = pts.iter().max_by(|a, b| a.0.total_cmp(&b.0))?.1;
     let mut coarse = [Point2::origin(); 4];
-    let mut whitened_angles = [0.0; 4];
     for (k, slot) in coarse.iter_mut().enumerate() {
-        let _ = k;
-        *slot = Point2::origin();
-    }
-    // Angles in image space are not 90 degrees apart under perspective; sectors are taken in
-    // whitened space where an affine square is a square.
-    let l = nalgebra::Cholesky::new(*inv)?.l();
-    let wang = |p: Point2<f64>| {
-        let d = Vector2::new(p.x - c.mean.x, p.y - c.mean.y);
-        let u = l.transpose() * d;
-        u.y.atan2(u.x)
-    };
-    let first_pt = pts.iter().find(|p| p.1 == first)?.2;
-    let a0 = wang(first_pt);
-    for k in 0..4 {
         let target = a0 + k as f64 * std::f64::consts::FRAC_PI_2;
         let best = pts
             .iter()
             .filter(|p| {
-                let da = (wang(p.2) - target + std::f64::consts::PI)
-                    .rem_euclid(std::f64::consts::TAU)
+                let da = (p.1 - target + std::f64::consts::PI).rem_euclid(std::f64::consts::TAU)
                     - std::f64::consts::PI;
                 da.abs() < 0.7
             })
             .max_by(|a, b| a.0.total_cmp(&b.0))?;
-        coarse[k] = best.2;
-        whitened_angles[k] = target;
+        *slot = best.2;
     }
     // Sides k: coarse[k] -> coarse[k+1]; profiles along the outward normal.
     let mut lines = Vec::with_capacity(4);
@@ -739,7 +755,8 @@ fn measure_square(
         line.var_angle *= shared;
         // Edge width: the 25 % to 75 % rise of a Gaussian-blurred step is 1.349 sigma.
         let (lo, hi) = (2.0 * level - median(&mut ground)?, median(&mut ground)?);
-        for e in edge2.iter().skip(count / 4).take(count / 2) {
+        let step = (edge2.len() / 8).max(1);
+        for e in edge2.iter().step_by(step) {
             let at = |f: f64| profile_crossing(img, *e, n2, reach, Some(lo + f * (hi - lo)));
             if let (Some((a, _, _)), Some((b, _, _))) = (at(0.25), at(0.75)) {
                 widths.push((b - a).abs() / 1.349);
@@ -1006,6 +1023,33 @@ mod tests {
                 * t;
         let y = 1.0 - poly * (-x * x).exp();
         if x >= 0.0 { y } else { -y }
+    }
+
+    /// The expanded weights against the kernel as R. Keys gives it ("Cubic convolution
+    /// interpolation for digital image processing", IEEE TASSP 29(6), 1981, eq. 15 with
+    /// a = -0.5): `1.5|s|^3 - 2.5|s|^2 + 1` for `|s| <= 1`, `-0.5|s|^3 + 2.5|s|^2 - 4|s| + 2`
+    /// for `1 < |s| < 2`; they also sum to 1.
+    #[test]
+    fn keys_weights_are_the_papers_kernel() {
+        let kernel = |s: f64| {
+            let s = s.abs();
+            if s <= 1.0 {
+                1.5 * s.powi(3) - 2.5 * s * s + 1.0
+            } else if s < 2.0 {
+                -0.5 * s.powi(3) + 2.5 * s * s - 4.0 * s + 2.0
+            } else {
+                0.0
+            }
+        };
+        for i in 0..=100 {
+            let t = i as f64 / 100.0 * 0.999;
+            let w = keys_weights(t);
+            let k = [kernel(t + 1.0), kernel(t), kernel(1.0 - t), kernel(2.0 - t)];
+            for (a, b) in w.iter().zip(k) {
+                assert!((a - b).abs() < 1e-14, "t {t}: {w:?} vs {k:?}");
+            }
+            assert!((w.iter().sum::<f64>() - 1.0).abs() < 1e-14);
+        }
     }
 
     /// A 3 x 3 grid of dark squares (side `side` px, gaps 0.625 of the side as on the bundled

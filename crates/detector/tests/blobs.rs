@@ -165,8 +165,8 @@ fn square_corners() {
 /// The detector issue's strongest blur, PSF sigma 2.5 px, on the standard scene's square grid
 /// (sides of 29 to 34 px): corners round over a third of the side and the outline reads as
 /// nearly round, yet every square is found and no corner is invented. Accuracy is reported
-/// and guarded, not a target of the issue: measured recall 1.0, RMS 0.131 px (views 0.083,
-/// 0.108, and the two 45-degree views 0.170 and 0.144). Before the square's final fit between
+/// and guarded, not a target of the issue: measured recall 1.0, RMS 0.134 px (views 0.086,
+/// 0.112, and the two 45-degree views 0.174 and 0.146). Before the square's final fit between
 /// its fitted corners and the rounded-square test, a view at 45 degrees lost 17 of its 70
 /// squares and the corners found were 0.2 to 0.6 px off.
 #[test]
