@@ -2,6 +2,9 @@
 //! per command (see DEVELOPERS.md).
 
 mod util;
+// The headless-browser loader the report crate's own browser test uses.
+#[path = "../crates/report/tests/headless/mod.rs"]
+mod headless;
 
 mod bad_input;
 mod calibrate;
