@@ -78,17 +78,7 @@ fn calibrate_recovers_the_rendered_camera_for_every_bundled_target() {
         render_set(name, camera, count, distance, tilt, &images);
         let out = root.path().join(format!("{name}-out"));
         let target = bundled_target(name);
-        let run = facetcal(
-            root.path(),
-            &[
-                "calibrate",
-                images.to_str().unwrap(),
-                "--target",
-                target.to_str().unwrap(),
-                "--out",
-                out.to_str().unwrap(),
-            ],
-        );
+        let run = calibrate_in(root.path(), &images, &target, &out, &[]);
         assert_eq!(run.code, 0, "{name}: {}\n{}", run.stdout, run.stderr);
         let got = read_result(&out);
         assert_recovers(name, &camera, &got);
