@@ -8,25 +8,9 @@
 use std::path::Path;
 
 use facetcal_model::files::{CalibrationFile, ViewStatus};
-use facetcal_model::{Camera, Distortion, Intrinsics, Target};
-use facetcal_render::{PoseGenerator, Scene, render_all_par};
+use facetcal_model::{Camera, Target};
 
-use crate::util::{bundled_target, facetcal, scratch};
-
-fn lens(width: u32, height: u32, f: f64, k1: f64, k2: f64) -> Camera {
-    Camera {
-        width,
-        height,
-        intrinsics: Intrinsics {
-            fx: f,
-            fy: f * 1.001,
-            cx: width as f64 / 2.0 - 0.5 + 3.2,
-            cy: height as f64 / 2.0 - 0.5 - 2.1,
-            skew: 0.0,
-        },
-        distortion: Distortion::BrownConrady { k1, k2, p1: 0.0, p2: 0.0, k3: 0.0 },
-    }
-}
+use crate::util::{bundled_target, corner_shot, facetcal, lens, render_pngs, scratch};
 
 /// Renders `count` random views of a bundled target into `dir` as PNG files.
 fn render_set(
@@ -37,22 +21,9 @@ fn render_set(
     tilt: [f64; 2],
     dir: &Path,
 ) {
-    let target = Target::load(&bundled_target(name)).unwrap();
-    let mut poses = PoseGenerator::new(count, 1000 + count as u64, distance);
-    poses.tilt_deg = tilt;
-    poses.roll_deg = [-20.0, 20.0];
-    poses.coverage = 0.6;
-    let scene = Scene::builder(target, camera)
-        .random_poses(poses)
-        .psf_sigma_px(0.9)
-        .noise_sigma(2.0)
-        .seed(7)
-        .build()
-        .unwrap();
     std::fs::create_dir_all(dir).unwrap();
-    for (k, view) in render_all_par(&scene).unwrap().into_iter().enumerate() {
-        std::fs::write(dir.join(format!("{name}-{k:02}.png")), view.image.to_png().unwrap())
-            .unwrap();
+    for (k, png) in render_pngs(name, camera, count, distance, tilt).into_iter().enumerate() {
+        std::fs::write(dir.join(format!("{name}-{k:02}.png")), png).unwrap();
     }
 }
 
@@ -107,17 +78,7 @@ fn calibrate_recovers_the_rendered_camera_for_every_bundled_target() {
         render_set(name, camera, count, distance, tilt, &images);
         let out = root.path().join(format!("{name}-out"));
         let target = bundled_target(name);
-        let run = facetcal(
-            root.path(),
-            &[
-                "calibrate",
-                images.to_str().unwrap(),
-                "--target",
-                target.to_str().unwrap(),
-                "--out",
-                out.to_str().unwrap(),
-            ],
-        );
+        let run = calibrate_in(root.path(), &images, &target, &out, &[]);
         assert_eq!(run.code, 0, "{name}: {}\n{}", run.stdout, run.stderr);
         let got = read_result(&out);
         assert_recovers(name, &camera, &got);
@@ -136,7 +97,8 @@ fn calibrate_recovers_the_rendered_camera_for_every_bundled_target() {
 
 /// One rendered corner-target shot, reused by the error-path tests.
 fn one_good_shot(dir: &Path) {
-    render_set("corner", lens(1024, 768, 900.0, -0.10, 0.03), 1, [450.0, 500.0], [0.0, 10.0], dir);
+    std::fs::create_dir_all(dir).unwrap();
+    std::fs::write(dir.join("corner-00.png"), corner_shot()).unwrap();
 }
 
 fn calibrate_in(

@@ -4,11 +4,11 @@
 //! with the bad field named.
 
 use std::path::{Path, PathBuf};
-use std::process::Command;
 
 use facetcal_model::PatternKind;
 use facetcal_regress::{Axis, BaselineFile, ResultFile, Suite};
 
+use crate::headless::{no_chromium, rendered_plots};
 use crate::util::{facetcal, root, scratch};
 
 fn suite_path() -> PathBuf {
@@ -49,51 +49,6 @@ fn bundled_suite_covers_every_pattern_kind_and_axis_and_has_a_baseline() {
     for sc in &suite.scenarios {
         assert!(sc.scene.optics().psf_sigma_px <= 2.5 && sc.scene.photometry().noise_sigma <= 8.0);
     }
-}
-
-fn chromium() -> Option<PathBuf> {
-    ["/usr/bin/chromium", "/usr/bin/chromium-browser"]
-        .iter()
-        .map(PathBuf::from)
-        .find(|p| p.exists())
-}
-
-/// The plots' drawn sizes and circle counts after the page's load handler ran in headless
-/// Chromium, by plot id order.
-fn rendered_plots(page: &Path, profile: &Path) -> Option<Vec<(u32, u32, u32)>> {
-    let browser = chromium()?;
-    let out = Command::new(browser)
-        .args([
-            "--headless",
-            "--no-sandbox",
-            "--disable-gpu",
-            "--disable-quic",
-            "--no-first-run",
-            "--disable-background-networking",
-            "--disable-component-update",
-            "--disable-sync",
-            "--virtual-time-budget=3000",
-        ])
-        .arg(format!("--user-data-dir={}", profile.display()))
-        .arg("--dump-dom")
-        .arg(format!("file://{}", page.display()))
-        .output()
-        .unwrap();
-    let dom = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        dom.contains("data-ready=\"yes\""),
-        "page did not finish loading: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let mut plots = Vec::new();
-    for (i, _) in dom.match_indices("data-drawn=\"") {
-        let d = &dom[i + 12..];
-        let d = &d[..d.find('"').unwrap()];
-        let (size, count) = d.split_once(':').unwrap();
-        let (w, h) = size.split_once('x').unwrap();
-        plots.push((w.parse().unwrap(), h.parse().unwrap(), count.parse().unwrap()));
-    }
-    Some(plots)
 }
 
 fn cache_files(dir: &Path) -> Vec<String> {
@@ -190,12 +145,7 @@ fn quick_suite_passes_a_worse_detector_fails_and_the_page_renders() {
             }
             assert!(plots[2].2 as usize >= views, "one point per view in the tilt plot");
         }
-        None => {
-            if std::env::var_os("CI").is_some() {
-                panic!("chromium is not installed: .ci/run must install it");
-            }
-            eprintln!("SKIPPED: chromium not found, so the page was not rendered in a browser");
-        }
+        None => no_chromium("the page"),
     }
 }
 

@@ -11,43 +11,9 @@ use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
 use facetcal_model::files::CalibrationFile;
-use facetcal_model::{Camera, Distortion, Intrinsics, Target};
-use facetcal_render::{PoseGenerator, Scene, render_all_par};
 use facetcal_watch::{Entry, JOURNAL_FILE, Journal, OutcomeFile, Step};
 
-use crate::util::{bundled_target, scratch};
-
-fn render_one(name: &str, width: u32, height: u32, f: f64, distance: [f64; 2]) -> Vec<u8> {
-    let camera = Camera {
-        width,
-        height,
-        intrinsics: Intrinsics {
-            fx: f,
-            fy: f * 1.001,
-            cx: width as f64 / 2.0 + 2.7,
-            cy: height as f64 / 2.0 - 1.9,
-            skew: 0.0,
-        },
-        distortion: Distortion::BrownConrady { k1: -0.10, k2: 0.03, p1: 0.0, p2: 0.0, k3: 0.0 },
-    };
-    let target = Target::load(&bundled_target(name)).unwrap();
-    let mut poses = PoseGenerator::new(1, 1001, distance);
-    poses.tilt_deg = [0.0, 10.0];
-    poses.roll_deg = [-20.0, 20.0];
-    poses.coverage = 0.6;
-    let scene = Scene::builder(target, camera)
-        .random_poses(poses)
-        .psf_sigma_px(0.9)
-        .noise_sigma(2.0)
-        .seed(7)
-        .build()
-        .unwrap();
-    render_all_par(&scene).unwrap().remove(0).image.to_png().unwrap()
-}
-
-fn corner_shot() -> Vec<u8> {
-    render_one("corner", 1024, 768, 900.0, [450.0, 500.0])
-}
+use crate::util::{bundled_target, corner_shot, lens, render_pngs, scratch};
 
 /// A batch as delivered: file names and contents.
 type Batch = Vec<(String, Vec<u8>)>;
@@ -257,7 +223,14 @@ fn bad_batches_go_to_failed_with_a_reason_and_the_service_goes_on() {
     let (inbox, out) = (r.join("inbox"), r.join("out"));
     std::fs::create_dir_all(&inbox).unwrap();
     let shot = corner_shot();
-    let wrong = render_one("checkerboard", 640, 480, 620.0, [420.0, 520.0]);
+    let wrong = render_pngs(
+        "checkerboard",
+        lens(640, 480, 620.0, -0.10, 0.03),
+        1,
+        [420.0, 520.0],
+        [0.0, 10.0],
+    )
+    .remove(0);
     let child = watcher(&inbox, &out, &["--jobs", "2"]);
     let mut expect: Vec<(String, &str)> = vec![
         ("no-images".into(), "no image files"),

@@ -205,7 +205,8 @@ pub fn write_results(
     Ok(json)
 }
 
-fn check_free(path: &Path, force: bool) -> anyhow::Result<()> {
+/// Refuses to replace an existing output unless `--force` was given (exit 73).
+pub(crate) fn check_free(path: &Path, force: bool) -> anyhow::Result<()> {
     if !force && path.exists() {
         return Err(exit::coded(
             exit::CANT_CREATE,

@@ -13,7 +13,9 @@ use facetcal_model::files::{CalibrationFile, InputRecord};
 use facetcal_pipeline::{Settings, calibrate_records, list_images};
 use rayon::prelude::*;
 
-use crate::calibrate::{CalibrationOptions, load_target, program, settings, write_results};
+use crate::calibrate::{
+    CalibrationOptions, check_free, load_target, program, settings, write_results,
+};
 use crate::{exit, output};
 
 #[derive(Args, Debug)]
@@ -66,16 +68,6 @@ const FLEET_JSON: &str = "fleet.json";
 const FLEET_CSV: &str = "fleet.csv";
 const FLEET_HTML: &str = "fleet.html";
 const CAMERA_FILES: [&str; 2] = ["calibration.json", "report.html"];
-
-fn check_free(path: &Path, force: bool) -> anyhow::Result<()> {
-    if !force && path.exists() {
-        return Err(exit::coded(
-            exit::CANT_CREATE,
-            format!("{} already exists (use --force to replace it)", path.display()),
-        ));
-    }
-    Ok(())
-}
 
 fn load_spec(path: &Path) -> anyhow::Result<FleetSpec> {
     let text = std::fs::read_to_string(path)

@@ -24,7 +24,7 @@ use nalgebra::{Matrix2, Point2, Vector2};
 
 use crate::features::CheckerCorner;
 use crate::filter::{RowSmoother, estimate_noise, gaussian_kernel};
-use crate::image::GreyImage;
+use crate::image::{GreyImage, bilinear};
 use crate::options::DetectorOptions;
 
 const RING_SAMPLES: usize = 16;
@@ -65,18 +65,7 @@ impl Patch<'_> {
 
     /// Bilinear interpolation, as [`GreyImage::sample`].
     fn sample(&self, x: f64, y: f64) -> f64 {
-        if !(x.is_finite() && y.is_finite()) {
-            return 0.0;
-        }
-        let x0 = x.floor();
-        let y0 = y.floor();
-        let (fx, fy) = (x - x0, y - y0);
-        let (xi, yi) = (x0.clamp(-2.0, 1e9) as isize, y0.clamp(-2.0, 1e9) as isize);
-        let a = self.at_clamped(xi, yi) as f64;
-        let b = self.at_clamped(xi + 1, yi) as f64;
-        let c = self.at_clamped(xi, yi + 1) as f64;
-        let d = self.at_clamped(xi + 1, yi + 1) as f64;
-        (a * (1.0 - fx) + b * fx) * (1.0 - fy) + (c * (1.0 - fx) + d * fx) * fy
+        bilinear(x, y, |xi, yi| self.at_clamped(xi, yi))
     }
 }
 

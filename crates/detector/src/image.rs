@@ -126,17 +126,26 @@ impl GreyImage {
     /// Bilinear interpolation at a subpixel position (pixel centres at integers), border
     /// replicated.
     pub fn sample(&self, x: f64, y: f64) -> f64 {
-        if !(x.is_finite() && y.is_finite()) {
-            return 0.0;
-        }
-        let x0 = x.floor();
-        let y0 = y.floor();
-        let (fx, fy) = (x - x0, y - y0);
-        let (xi, yi) = (x0.clamp(-2.0, 1e9) as isize, y0.clamp(-2.0, 1e9) as isize);
-        let a = self.at_clamped(xi, yi) as f64;
-        let b = self.at_clamped(xi + 1, yi) as f64;
-        let c = self.at_clamped(xi, yi + 1) as f64;
-        let d = self.at_clamped(xi + 1, yi + 1) as f64;
-        (a * (1.0 - fx) + b * fx) * (1.0 - fy) + (c * (1.0 - fx) + d * fx) * fy
+        bilinear(x, y, |xi, yi| self.at_clamped(xi, yi))
     }
+}
+
+/// Bilinear interpolation at a subpixel position (pixel centres at integers) of the pixels that
+/// `at` gives, which must replicate the border; 0 at a non-finite position. The corner is clamped
+/// before the cast so that a huge coordinate cannot overflow. Shared by every sampler of grey
+/// values so that they agree to the bit.
+#[inline]
+pub(crate) fn bilinear(x: f64, y: f64, at: impl Fn(isize, isize) -> f32) -> f64 {
+    if !(x.is_finite() && y.is_finite()) {
+        return 0.0;
+    }
+    let x0 = x.floor();
+    let y0 = y.floor();
+    let (fx, fy) = (x - x0, y - y0);
+    let (xi, yi) = (x0.clamp(-2.0, 1e9) as isize, y0.clamp(-2.0, 1e9) as isize);
+    let a = at(xi, yi) as f64;
+    let b = at(xi + 1, yi) as f64;
+    let c = at(xi, yi + 1) as f64;
+    let d = at(xi + 1, yi + 1) as f64;
+    (a * (1.0 - fx) + b * fx) * (1.0 - fy) + (c * (1.0 - fx) + d * fx) * fy
 }

@@ -4,6 +4,7 @@
 
 use std::fmt::Write;
 
+use facetcal_report::page::{Script, page_head, svg_open};
 use facetcal_sheet::escape_xml;
 
 use crate::verdict::num;
@@ -24,11 +25,8 @@ fn histogram(stats: &ParameterStats, values: &[f64]) -> String {
     let top = bins.iter().copied().max().unwrap_or(1).max(1) as f64;
     let bar_w = (w - 2.0 * pad) / BINS as f64;
     let mut s = String::new();
-    let _ = write!(
-        s,
-        r#"<figure><svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" role="img"><title>{}</title>"#,
-        escape_xml(&format!("histogram of {}", stats.name))
-    );
+    s.push_str("<figure>");
+    svg_open(&mut s, &format!("histogram of {}", stats.name), w, h);
     for (i, &n) in bins.iter().enumerate() {
         let bh = (h - 2.0 * pad) * n as f64 / top;
         let _ = write!(
@@ -68,19 +66,16 @@ fn histogram(stats: &ParameterStats, values: &[f64]) -> String {
     s
 }
 
+/// The fleet page's style rules: compact tables, failed rows shaded, histograms side by side.
+const FLEET_CSS: &str = "body{font-family:sans-serif;margin:1.5em;color:#222}table{border-collapse:collapse}\
+td,th{border:1px solid #bbb;padding:2px 6px;text-align:left;vertical-align:top}\
+td.n{text-align:right;font-variant-numeric:tabular-nums}tr.bad td{background:#fbe9e7}\
+figure{display:inline-block;margin:0 1em 1em 0}figcaption{font-size:0.85em}\n";
+
 /// The page for a fleet file, titled `title`.
 pub fn fleet_html(title: &str, fleet: &FleetFile) -> String {
     let mut s = String::new();
-    let t = escape_xml(title);
-    let _ = write!(
-        s,
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{t}</title><style>\
-body{{font-family:sans-serif;margin:1.5em;color:#222}}table{{border-collapse:collapse}}\
-td,th{{border:1px solid #bbb;padding:2px 6px;text-align:left;vertical-align:top}}\
-td.n{{text-align:right;font-variant-numeric:tabular-nums}}tr.bad td{{background:#fbe9e7}}\
-figure{{display:inline-block;margin:0 1em 1em 0}}figcaption{{font-size:0.85em}}\
-</style></head><body><h1>{t}</h1>"
-    );
+    page_head(&mut s, title, &[FLEET_CSS], Script::None);
     let c = &fleet.counts;
     let _ = write!(
         s,

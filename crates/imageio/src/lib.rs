@@ -322,14 +322,13 @@ pub fn decode(
 }
 
 #[cfg(test)]
+#[path = "../tests/crafted/mod.rs"]
+mod crafted;
+
+#[cfg(test)]
 mod tests {
     use super::*;
-
-    fn png_bytes(img: &DynamicImage, format: ImageFormat) -> Vec<u8> {
-        let mut out = Cursor::new(Vec::new());
-        img.write_to(&mut out, format).unwrap();
-        out.into_inner()
-    }
+    use crate::crafted::{encoded, jpeg_with_orientation, png_claiming_size, xor_pattern};
 
     fn gradient16() -> DynamicImage {
         let img =
@@ -339,7 +338,7 @@ mod tests {
 
     #[test]
     fn sixteen_bit_png_stays_sixteen_bit() {
-        let bytes = png_bytes(&gradient16(), ImageFormat::Png);
+        let bytes = encoded(&gradient16(), ImageFormat::Png);
         let got = decode(Path::new("a.png"), bytes, &LoadOptions::default()).unwrap();
         assert_eq!(got.bits, 16);
         assert_eq!(got.image.as_luma16().unwrap().get_pixel(39, 29)[0], 39 * 1000 + 29 * 7);
@@ -357,11 +356,9 @@ mod tests {
     #[test]
     fn every_bad_file_class_gets_its_own_error() {
         let o = LoadOptions::default();
-        let img = DynamicImage::ImageLuma8(image::ImageBuffer::from_fn(64, 48, |x, y| {
-            image::Luma([((x ^ y) * 4) as u8])
-        }));
-        let jpeg = png_bytes(&img, ImageFormat::Jpeg);
-        let png = png_bytes(&img, ImageFormat::Png);
+        let img = xor_pattern(64, 48);
+        let jpeg = encoded(&img, ImageFormat::Jpeg);
+        let png = encoded(&img, ImageFormat::Png);
         assert!(decode(Path::new("a.jpg"), jpeg.clone(), &o).is_ok());
         let cut = jpeg[..jpeg.len() * 2 / 3].to_vec();
         assert!(matches!(decode(Path::new("a.jpg"), cut, &o), Err(ImageIoError::Truncated { .. })));
@@ -386,28 +383,11 @@ mod tests {
         ));
     }
 
-    /// CRC-32 of PNG chunks (ISO/IEC 15948 annex D, polynomial 0xEDB88320).
-    fn crc32(bytes: &[u8]) -> u32 {
-        let mut c = 0xFFFF_FFFFu32;
-        for &b in bytes {
-            c ^= b as u32;
-            for _ in 0..8 {
-                c = if c & 1 != 0 { 0xEDB8_8320 ^ (c >> 1) } else { c >> 1 };
-            }
-        }
-        !c
-    }
-
     /// A valid PNG header claiming 100000 x 100000 pixels is refused as too large before any
     /// pixel is allocated.
     #[test]
     fn decompression_bombs_are_refused() {
-        let mut png = png_bytes(&gradient16(), ImageFormat::Png);
-        // IHDR: length at 8..12, type and data at 12..29, CRC at 29..33.
-        png[16..20].copy_from_slice(&100_000u32.to_be_bytes());
-        png[20..24].copy_from_slice(&100_000u32.to_be_bytes());
-        let crc = crc32(&png[12..29]);
-        png[29..33].copy_from_slice(&crc.to_be_bytes());
+        let png = png_claiming_size(&encoded(&gradient16(), ImageFormat::Png), 100_000, 100_000);
         let e = decode(Path::new("bomb.png"), png, &LoadOptions::default()).unwrap_err();
         assert!(matches!(e, ImageIoError::TooLarge { .. }), "{e}");
         assert!(e.to_string().contains("100000 x 100000"), "{e}");
@@ -420,17 +400,8 @@ mod tests {
         let img = DynamicImage::ImageLuma8(image::ImageBuffer::from_fn(32, 16, |x, _| {
             image::Luma([(x * 8) as u8])
         }));
-        let jpeg = png_bytes(&img, ImageFormat::Jpeg);
-        // APP1 "Exif\0\0", little-endian TIFF header, one IFD entry: 0x0112 SHORT 1 6.
-        let mut tiff = b"II*\0\x08\0\0\0\x01\0".to_vec();
-        tiff.extend_from_slice(&[0x12, 0x01, 3, 0, 1, 0, 0, 0, 6, 0, 0, 0, 0, 0, 0, 0]);
-        let mut app1 = b"Exif\0\0".to_vec();
-        app1.extend_from_slice(&tiff);
-        let mut bytes = jpeg[..2].to_vec();
-        bytes.extend_from_slice(&[0xFF, 0xE1]);
-        bytes.extend_from_slice(&((app1.len() + 2) as u16).to_be_bytes());
-        bytes.extend_from_slice(&app1);
-        bytes.extend_from_slice(&jpeg[2..]);
+        let jpeg = encoded(&img, ImageFormat::Jpeg);
+        let bytes = jpeg_with_orientation(&jpeg, 6);
         let e = decode(Path::new("r.jpg"), bytes.clone(), &LoadOptions::default()).unwrap_err();
         assert!(matches!(e, ImageIoError::Rotated { .. }), "{e}");
         let keep =

@@ -9,6 +9,7 @@
 
 use std::fmt::Write;
 
+use facetcal_report::page::{self, Script, figure_grid, page_head, plot_area, round_125, svg_open};
 use facetcal_sheet::escape_xml as esc;
 
 use crate::result::ResultFile;
@@ -25,19 +26,7 @@ struct Dot {
 
 /// A step of 1, 2 or 5 times a power of ten giving about five intervals over `span`.
 fn tick_step(span: f64) -> f64 {
-    let raw = (span / 5.0).max(1e-12);
-    let base = 10f64.powf(raw.log10().floor());
-    let m = raw / base;
-    let n = if m < 1.5 {
-        1.0
-    } else if m < 3.5 {
-        2.0
-    } else if m < 7.5 {
-        5.0
-    } else {
-        10.0
-    };
-    n * base
+    round_125((span / 5.0).max(1e-12))
 }
 
 fn fmt_tick(v: f64, step: f64) -> String {
@@ -65,15 +54,8 @@ fn scatter(label: &str, x_label: &str, y_label: &str, series: &[(String, Vec<Dot
     let sx = |x: f64| left + (x - x0) / (x1 - x0) * pw;
     let sy = |y: f64| top + ph - y / y1 * ph;
     let mut o = String::new();
-    let _ = writeln!(
-        o,
-        r##"<svg class="plot" role="img" aria-label="{}" viewBox="0 0 {w} {h}" width="{w}" height="{h}">"##,
-        esc(label)
-    );
-    let _ = writeln!(
-        o,
-        r##"<rect x="{left}" y="{top}" width="{pw}" height="{ph}" fill="#fafafa" stroke="#444" stroke-width="1"/>"##
-    );
+    svg_open(&mut o, label, w, h);
+    plot_area(&mut o, left, top, pw, ph);
     let xs = tick_step(x1 - x0);
     let mut t = (x0 / xs).ceil() * xs;
     while t <= x1 + 1e-12 {
@@ -178,6 +160,11 @@ fn condition_plot(
     scatter(label, x_label, "RMS error, px", &series)
 }
 
+/// The result page's own style rules, after the shared ones.
+const RESULT_CSS: &str = "table { font-size: 13px; }
+tr.worse td { background: #fdecea; color: #922; font-weight: bold; }
+";
+
 /// The page of a result.
 pub fn result_html(r: &ResultFile) -> String {
     let mut o = String::new();
@@ -190,27 +177,15 @@ pub fn result_html(r: &ResultFile) -> String {
             c.not_in_baseline.len()
         ),
     };
-    let _ = write!(
+    page_head(
+        &mut o,
+        &format!("Detector regression: {}", r.suite),
+        &[page::BASE_CSS, RESULT_CSS],
+        Script::Inline,
+    );
+    let _ = writeln!(
         o,
-        r#"<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8">
-<meta http-equiv="Content-Security-Policy" content="default-src 'none'; style-src 'unsafe-inline'; script-src 'unsafe-inline'; img-src data:">
-<title>{t}</title>
-<style>
-body {{ font-family: sans-serif; margin: 24px; color: #222; max-width: 1280px; }}
-h1 {{ font-size: 22px; margin-bottom: 4px; }}
-.grid {{ display: flex; flex-wrap: wrap; gap: 16px; }}
-figure {{ margin: 0; border: 1px solid #ddd; padding: 8px; }}
-figcaption {{ font-weight: bold; margin-bottom: 4px; }}
-table {{ border-collapse: collapse; margin: 8px 0; font-size: 13px; }}
-td, th {{ border: 1px solid #ccc; padding: 3px 8px; text-align: right; }}
-td:first-child, th:first-child {{ text-align: left; }}
-tr.worse td {{ background: #fdecea; color: #922; font-weight: bold; }}
-</style></head><body>
-<h1>{t}</h1>
-<p>{prog}, {n} scenarios{quick}: <b id="verdict">{v}</b>.</p>
-"#,
-        t = esc(&format!("Detector regression: {}", r.suite)),
+        "<p>{prog}, {n} scenarios{quick}: <b id=\"verdict\">{v}</b>.</p>",
         prog = esc(&r.program),
         n = r.scenarios.len(),
         quick = if r.quick { " (quick subset)" } else { "" },
@@ -276,7 +251,7 @@ tr.worse td {{ background: #fdecea; color: #922; font-weight: bold; }}
             m.ms_per_image
         );
     }
-    o.push_str("</table>\n<p>Time per image is wall time of detection and identification while views run in parallel; it is reported, never compared (speed is measured by the benchmarks).</p>\n<h2>Error against condition</h2>\n<div class=\"grid\">\n");
+    o.push_str("</table>\n<p>Time per image is wall time of detection and identification while views run in parallel; it is reported, never compared (speed is measured by the benchmarks).</p>\n<h2>Error against condition</h2>\n");
     let tilt = scatter(
         "RMS error per view against the tilt",
         "tilt of the first face, degrees",
@@ -331,16 +306,8 @@ tr.worse td {{ background: #fdecea; color: #922; font-weight: bold; }}
             ),
         ),
     ];
-    for (id, caption, svg) in figures {
-        let _ =
-            writeln!(o, "<figure id=\"{id}\"><figcaption>{caption}</figcaption>\n{svg}</figure>");
-    }
-    o.push_str("</div>\n");
-    // After layout each plot records its drawn size, so a headless browser's DOM dump proves
-    // that every plot rendered.
-    o.push_str(
-        "<script>window.addEventListener('load', function () { document.querySelectorAll('svg.plot').forEach(function (s) { var b = s.getBoundingClientRect(); s.setAttribute('data-drawn', Math.round(b.width) + 'x' + Math.round(b.height) + ':' + s.querySelectorAll('circle').length); }); document.body.setAttribute('data-ready', 'yes'); });</script>\n",
-    );
+    figure_grid(&mut o, &figures);
+    page::drawn_size_script(&mut o, "circle");
     o.push_str("</body></html>\n");
     o
 }

@@ -35,6 +35,8 @@
 //! about `3 (1/s) tan(tilt) / f` across it: below 1e-3 relative), both far below 1e-3 px in the
 //! positions they imply.
 
+use std::ops::ControlFlow;
+
 use facetcal_model::{Camera, Face, Ink, Pose, SeededRng, Shape};
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -174,6 +176,40 @@ impl FaceView {
         q[0] >= -tol && q[1] >= -tol && q[0] <= self.w + tol && q[1] <= self.h + tol
     }
 
+    /// Calls `f` on every painted shape whose bounding box overlaps the box `bb`, each once
+    /// (in the first bucket of the query it shares), in bucket order, until `f` breaks.
+    #[inline]
+    fn overlapping<B>(
+        &self,
+        bb: &[f64; 4],
+        mut f: impl FnMut(&Painted) -> ControlFlow<B>,
+    ) -> ControlFlow<B> {
+        let cell = |v: f64, n: usize| ((v / self.bucket).floor().max(0.0) as usize).min(n - 1);
+        let (bx0, by0) = (cell(bb[0], self.nbx), cell(bb[1], self.nby));
+        let (bx1, by1) = (cell(bb[2], self.nbx), cell(bb[3], self.nby));
+        for by in by0..=by1 {
+            for bx in bx0..=bx1 {
+                for &si in &self.buckets[by * self.nbx + bx] {
+                    let si = si as usize;
+                    let (fx, fy) = self.first_bucket[si];
+                    if fx.max(bx0) != bx || fy.max(by0) != by {
+                        continue;
+                    }
+                    let s = &self.shapes[si];
+                    if s.bbox[0] >= bb[2]
+                        || s.bbox[2] <= bb[0]
+                        || s.bbox[1] >= bb[3]
+                        || s.bbox[3] <= bb[1]
+                    {
+                        continue;
+                    }
+                    f(s)?;
+                }
+            }
+        }
+        ControlFlow::Continue(())
+    }
+
     /// Fraction of the quadrilateral on the face, and its reflectance integral over the
     /// quadrilateral's area (step 2 of the module doc).
     fn quad_value(&self, q: &[Xy; 4]) -> (f64, f64) {
@@ -196,52 +232,32 @@ impl FaceView {
             quad_rect_area(q, 0.0, 0.0, self.w, self.h)
         };
         let mut ink = self.ground * on_face;
-        let cell = |v: f64, n: usize| ((v / self.bucket).floor().max(0.0) as usize).min(n - 1);
-        let (bx0, by0) = (cell(bb[0], self.nbx), cell(bb[1], self.nby));
-        let (bx1, by1) = (cell(bb[2], self.nbx), cell(bb[3], self.nby));
-        for by in by0..=by1 {
-            for bx in bx0..=bx1 {
-                for &si in &self.buckets[by * self.nbx + bx] {
-                    let si = si as usize;
-                    // Count a shape once: in the first bucket of the query it shares.
-                    let (fx, fy) = self.first_bucket[si];
-                    if fx.max(bx0) != bx || fy.max(by0) != by {
-                        continue;
+        let _ = self.overlapping(&bb, |s| {
+            let a = match s.shape {
+                Shape::Rect { x0, y0, x1, y1 } => {
+                    if bb[0] >= x0 && bb[2] <= x1 && bb[1] >= y0 && bb[3] <= y1 {
+                        area
+                    } else {
+                        quad_rect_area(q, x0, y0, x1, y1)
                     }
-                    let s = &self.shapes[si];
-                    if s.bbox[0] >= bb[2]
-                        || s.bbox[2] <= bb[0]
-                        || s.bbox[1] >= bb[3]
-                        || s.bbox[3] <= bb[1]
-                    {
-                        continue;
-                    }
-                    let a = match s.shape {
-                        Shape::Rect { x0, y0, x1, y1 } => {
-                            if bb[0] >= x0 && bb[2] <= x1 && bb[1] >= y0 && bb[3] <= y1 {
-                                area
-                            } else {
-                                quad_rect_area(q, x0, y0, x1, y1)
-                            }
-                        }
-                        Shape::Disc { centre, radius } => {
-                            let r2 = radius * radius;
-                            let all_in = q.iter().all(|p| {
-                                let dx = p[0] - centre.x;
-                                let dy = p[1] - centre.y;
-                                dx * dx + dy * dy <= r2
-                            });
-                            if all_in {
-                                area
-                            } else {
-                                crate::area::polygon_disc_area(q, [centre.x, centre.y], radius)
-                            }
-                        }
-                    };
-                    ink += s.sign * a;
                 }
-            }
-        }
+                Shape::Disc { centre, radius } => {
+                    let r2 = radius * radius;
+                    let all_in = q.iter().all(|p| {
+                        let dx = p[0] - centre.x;
+                        let dy = p[1] - centre.y;
+                        dx * dx + dy * dy <= r2
+                    });
+                    if all_in {
+                        area
+                    } else {
+                        crate::area::polygon_disc_area(q, [centre.x, centre.y], radius)
+                    }
+                }
+            };
+            ink += s.sign * a;
+            ControlFlow::<()>::Continue(())
+        });
         (on_face / area, ink / area)
     }
 
@@ -251,52 +267,36 @@ impl FaceView {
     /// the box gives.
     fn uniform_value(&self, bb: &[f64; 4]) -> Option<f64> {
         let mut v = self.ground;
-        let cell = |v: f64, n: usize| ((v / self.bucket).floor().max(0.0) as usize).min(n - 1);
-        let (bx0, by0) = (cell(bb[0], self.nbx), cell(bb[1], self.nby));
-        let (bx1, by1) = (cell(bb[2], self.nbx), cell(bb[3], self.nby));
-        for by in by0..=by1 {
-            for bx in bx0..=bx1 {
-                for &si in &self.buckets[by * self.nbx + bx] {
-                    let si = si as usize;
-                    let (fx, fy) = self.first_bucket[si];
-                    if fx.max(bx0) != bx || fy.max(by0) != by {
-                        continue;
-                    }
-                    let s = &self.shapes[si];
-                    if s.bbox[0] >= bb[2]
-                        || s.bbox[2] <= bb[0]
-                        || s.bbox[1] >= bb[3]
-                        || s.bbox[3] <= bb[1]
-                    {
-                        continue;
-                    }
-                    let inside = match s.shape {
-                        Shape::Rect { x0, y0, x1, y1 } => {
-                            bb[0] >= x0 && bb[2] <= x1 && bb[1] >= y0 && bb[3] <= y1
-                        }
-                        Shape::Disc { centre, radius } => {
-                            let r2 = radius * radius;
-                            let dx = (centre.x - bb[0]).abs().max((centre.x - bb[2]).abs());
-                            let dy = (centre.y - bb[1]).abs().max((centre.y - bb[3]).abs());
-                            if dx * dx + dy * dy <= r2 {
-                                true
-                            } else {
-                                // Nearest point of the box to the centre.
-                                let nx = centre.x.clamp(bb[0], bb[2]) - centre.x;
-                                let ny = centre.y.clamp(bb[1], bb[3]) - centre.y;
-                                if nx * nx + ny * ny > r2 {
-                                    continue;
-                                }
-                                false
-                            }
-                        }
-                    };
-                    if !inside {
-                        return None;
-                    }
-                    v += s.sign;
+        let mixed = self.overlapping(bb, |s| {
+            let inside = match s.shape {
+                Shape::Rect { x0, y0, x1, y1 } => {
+                    bb[0] >= x0 && bb[2] <= x1 && bb[1] >= y0 && bb[3] <= y1
                 }
+                Shape::Disc { centre, radius } => {
+                    let r2 = radius * radius;
+                    let dx = (centre.x - bb[0]).abs().max((centre.x - bb[2]).abs());
+                    let dy = (centre.y - bb[1]).abs().max((centre.y - bb[3]).abs());
+                    if dx * dx + dy * dy <= r2 {
+                        true
+                    } else {
+                        // Nearest point of the box to the centre.
+                        let nx = centre.x.clamp(bb[0], bb[2]) - centre.x;
+                        let ny = centre.y.clamp(bb[1], bb[3]) - centre.y;
+                        if nx * nx + ny * ny > r2 {
+                            return ControlFlow::Continue(());
+                        }
+                        false
+                    }
+                }
+            };
+            if !inside {
+                return ControlFlow::Break(());
             }
+            v += s.sign;
+            ControlFlow::Continue(())
+        });
+        if mixed.is_break() {
+            return None;
         }
         Some(v)
     }

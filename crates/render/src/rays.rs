@@ -364,35 +364,37 @@ mod tests {
     use super::*;
     use facetcal_model::Intrinsics;
 
+    /// Strong Brown-Conrady distortion with tangential terms and skew.
+    fn strong_brown() -> Camera {
+        Camera {
+            width: 640,
+            height: 480,
+            intrinsics: Intrinsics { fx: 400.0, fy: 401.0, cx: 321.0, cy: 238.0, skew: 0.3 },
+            distortion: Distortion::BrownConrady {
+                k1: -0.3,
+                k2: 0.09,
+                p1: 0.001,
+                p2: -0.0008,
+                k3: -0.01,
+            },
+        }
+    }
+
+    /// A Kannala-Brandt fisheye of short focal length, so the image corners lie far off axis.
+    fn fisheye() -> Camera {
+        Camera {
+            width: 640,
+            height: 480,
+            intrinsics: Intrinsics { fx: 200.0, fy: 200.0, cx: 319.5, cy: 239.5, skew: 0.0 },
+            distortion: Distortion::KannalaBrandt { k1: 0.02, k2: -0.006, k3: 0.001, k4: -0.0002 },
+        }
+    }
+
     /// The rays agree with the model crate's own inverse over the whole image, corners included.
     #[test]
     fn rays_agree_with_the_model_inverse() {
-        let cams = [
-            Camera::pinhole(640, 480, 500.0, 505.0, 320.2, 239.1),
-            Camera {
-                width: 640,
-                height: 480,
-                intrinsics: Intrinsics { fx: 400.0, fy: 401.0, cx: 321.0, cy: 238.0, skew: 0.3 },
-                distortion: Distortion::BrownConrady {
-                    k1: -0.3,
-                    k2: 0.09,
-                    p1: 0.001,
-                    p2: -0.0008,
-                    k3: -0.01,
-                },
-            },
-            Camera {
-                width: 640,
-                height: 480,
-                intrinsics: Intrinsics { fx: 200.0, fy: 200.0, cx: 319.5, cy: 239.5, skew: 0.0 },
-                distortion: Distortion::KannalaBrandt {
-                    k1: 0.02,
-                    k2: -0.006,
-                    k3: 0.001,
-                    k4: -0.0002,
-                },
-            },
-        ];
+        let cams =
+            [Camera::pinhole(640, 480, 500.0, 505.0, 320.2, 239.1), strong_brown(), fisheye()];
         for cam in cams {
             let rc = RayCaster::new(&cam);
             let mut worst: f64 = 0.0;
@@ -420,24 +422,8 @@ mod tests {
             intrinsics: Intrinsics { fx: 700.0, fy: 700.0, cx: 319.5, cy: 239.5, skew: 0.0 },
             distortion: Distortion::BrownConrady { k1: -0.2, k2: 0.05, p1: 0.0, p2: 0.0, k3: 0.0 },
         };
-        let strong = Camera {
-            width: 640,
-            height: 480,
-            intrinsics: Intrinsics { fx: 400.0, fy: 401.0, cx: 321.0, cy: 238.0, skew: 0.3 },
-            distortion: Distortion::BrownConrady {
-                k1: -0.3,
-                k2: 0.09,
-                p1: 0.001,
-                p2: -0.0008,
-                k3: -0.01,
-            },
-        };
-        let fisheye = Camera {
-            width: 640,
-            height: 480,
-            intrinsics: Intrinsics { fx: 200.0, fy: 200.0, cx: 319.5, cy: 239.5, skew: 0.0 },
-            distortion: Distortion::KannalaBrandt { k1: 0.02, k2: -0.006, k3: 0.001, k4: -0.0002 },
-        };
+        let strong = strong_brown();
+        let fisheye = fisheye();
         for (cam, most_smooth) in [(mild, true), (strong, false), (fisheye, false)] {
             let rc = RayCaster::new(&cam);
             let xs: Vec<f64> = (0..=(640 + 40) * 4).map(|i| -20.5 + i as f64 / 4.0).collect();

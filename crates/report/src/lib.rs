@@ -14,17 +14,23 @@
 //! quality verdict and the cautions. Every string that comes from input (file names, view names,
 //! messages) is escaped.
 //!
+//! The [`page`] module holds the parts every facetcal HTML page shares (head and security
+//! policy, plot element, figure grid), used by the regression and fleet pages too.
+//!
 //! This crate only builds text; it never reads or writes files.
 #![deny(missing_docs)]
 // Library code never unwraps: input-derived failures are typed errors, and the few
 // invariants that cannot fail say so with an allowed `expect` beside the reason.
 #![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
+pub mod page;
+
 use std::fmt::Write;
 
 use facetcal_model::files::{CalibrationFile, ParameterStatus, Verdict, ViewPoints, ViewStatus};
 use facetcal_sheet::escape_xml as esc;
 use nalgebra::Point2;
+use page::{Script, figure_grid, page_head, plot_area, round_125, svg_open};
 
 /// Columns and rows of the coverage grid.
 pub const COVERAGE_GRID: (usize, usize) = (12, 9);
@@ -81,19 +87,8 @@ impl Frame {
     fn open(&self, o: &mut String, label: &str) {
         let w = Frame::W + 2.0 * Frame::PAD;
         let h = self.height * self.scale + 2.0 * Frame::PAD + 18.0;
-        let _ = writeln!(
-            o,
-            r##"<svg class="plot" role="img" aria-label="{}" viewBox="0 0 {w:.1} {h:.1}" width="{w:.0}" height="{h:.0}">"##,
-            esc(label)
-        );
-        let _ = writeln!(
-            o,
-            r##"<rect x="{:.1}" y="{:.1}" width="{:.1}" height="{:.1}" fill="#fafafa" stroke="#444" stroke-width="1"/>"##,
-            Frame::PAD,
-            Frame::PAD,
-            self.width * self.scale,
-            self.height * self.scale
-        );
+        svg_open(o, label, w, h);
+        plot_area(o, Frame::PAD, Frame::PAD, self.width * self.scale, self.height * self.scale);
     }
 
     fn caption(&self, o: &mut String, text: &str) {
@@ -142,29 +137,12 @@ fn residual_plot(cal: &CalibrationFile, obs: &[ViewPoints]) -> String {
             arrow(&mut o, x, y, x + r[0] * gain, y + r[1] * gain, "#c0392b");
         }
     }
-    let legend_px = nice(p95.max(1e-3));
+    let legend_px = round_125(p95.max(1e-3));
     f.caption(&mut o, &format!("arrow of {legend_px} px drawn {:.0} units long", legend_px * gain));
     let y = f.height * f.scale + 2.0 * Frame::PAD + 4.0;
     arrow(&mut o, 360.0, y, 360.0 + legend_px * gain, y, "#c0392b");
     o.push_str("</svg>\n");
     o
-}
-
-/// A round number near `x` for legends (1, 2 or 5 times a power of ten).
-fn nice(x: f64) -> f64 {
-    let e = x.log10().floor();
-    let base = 10f64.powf(e);
-    let m = x / base;
-    let n = if m < 1.5 {
-        1.0
-    } else if m < 3.5 {
-        2.0
-    } else if m < 7.5 {
-        5.0
-    } else {
-        10.0
-    };
-    n * base
 }
 
 fn coverage_plot(cal: &CalibrationFile, obs: &[ViewPoints]) -> (String, f64) {
@@ -223,12 +201,7 @@ fn view_error_plot(cal: &CalibrationFile) -> String {
     let h = n as f64 * row + 40.0;
     let max = cal.views.iter().filter_map(|v| v.rms_px).fold(cal.rms_px, f64::max).max(1e-6);
     let mut o = String::new();
-    let _ = writeln!(
-        o,
-        r##"<svg class="plot" role="img" aria-label="RMS reprojection error per image" viewBox="0 0 {:.0} {h:.0}" width="{:.0}" height="{h:.0}">"##,
-        label_w + bar_w + 80.0,
-        label_w + bar_w + 80.0
-    );
+    svg_open(&mut o, "RMS reprojection error per image", label_w + bar_w + 80.0, h);
     for (i, v) in cal.views.iter().enumerate() {
         let y = 10.0 + i as f64 * row;
         let _ = writeln!(
@@ -375,37 +348,24 @@ fn short(x: f64) -> String {
     }
 }
 
+/// The report's own style rules, after the shared ones.
+const REPORT_CSS: &str =
+    ".caution { border-left: 4px solid #c0392b; background: #fdf2f0; padding: 8px 12px; }
+table.verdict td:last-child { text-align: left; }
+.warn { color: #a04000; }
+.pass { color: #1e7b34; }
+.fail { color: #b3261e; font-weight: bold; }
+";
+
 /// The report page.
 pub fn calibration_html(title: &str, cal: &CalibrationFile, observations: &[ViewPoints]) -> String {
     let (coverage_svg, share) = coverage_plot(cal, observations);
     let used = cal.views.iter().filter(|v| v.status == ViewStatus::Used).count();
     let mut o = String::new();
-    let _ = write!(
+    page_head(&mut o, title, &[page::BASE_CSS, REPORT_CSS], Script::Inline);
+    let _ = writeln!(
         o,
-        r#"<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8">
-<meta http-equiv="Content-Security-Policy" content="default-src 'none'; style-src 'unsafe-inline'; script-src 'unsafe-inline'; img-src data:">
-<title>{t}</title>
-<style>
-body {{ font-family: sans-serif; margin: 24px; color: #222; max-width: 1240px; }}
-h1 {{ font-size: 22px; margin-bottom: 4px; }}
-.caution {{ border-left: 4px solid #c0392b; background: #fdf2f0; padding: 8px 12px; }}
-.grid {{ display: flex; flex-wrap: wrap; gap: 16px; }}
-figure {{ margin: 0; border: 1px solid #ddd; padding: 8px; }}
-figcaption {{ font-weight: bold; margin-bottom: 4px; }}
-table {{ border-collapse: collapse; margin: 8px 0; }}
-td, th {{ border: 1px solid #ccc; padding: 3px 8px; text-align: right; }}
-td:first-child, th:first-child {{ text-align: left; }}
-table.verdict td:last-child {{ text-align: left; }}
-.warn {{ color: #a04000; }}
-.pass {{ color: #1e7b34; }}
-.fail {{ color: #b3261e; font-weight: bold; }}
-</style></head><body>
-<h1>{t}</h1>
-<p>{model} model, image {w} x {h} px, {used} of {n} images used, RMS reprojection error <b>{rms:.3} px</b>, image coverage {cov:.0} %.</p>
-<p class="caution">{caution}</p>
-"#,
-        t = esc(title),
+        "<p>{model} model, image {w} x {h} px, {used} of {n} images used, RMS reprojection error <b>{rms:.3} px</b>, image coverage {cov:.0} %.</p>\n<p class=\"caution\">{caution}</p>",
         model = esc(cal.camera.distortion.kind().name()),
         w = cal.camera.width,
         h = cal.camera.height,
@@ -434,36 +394,16 @@ table.verdict td:last-child {{ text-align: left; }}
         cal.summary.final_cost,
         esc(&cal.summary.termination)
     );
-    o.push_str("<div class=\"grid\">\n");
-    let figures = [
-        ("plot-residuals", "Residuals across the image", residual_plot(cal, observations)),
-        ("plot-coverage", "Coverage and where more shots are needed", coverage_svg),
-        ("plot-view-errors", "Error per image", view_error_plot(cal)),
-        ("plot-distortion", "Distortion field", distortion_plot(cal)),
-    ];
-    for (id, caption, svg) in figures {
-        let _ =
-            writeln!(o, "<figure id=\"{id}\"><figcaption>{caption}</figcaption>\n{svg}</figure>");
-    }
-    o.push_str("</div>\n");
-    // After layout, each plot records its drawn size, so a headless browser's DOM dump proves
-    // that every plot rendered.
-    o.push_str(
-        "<script>window.addEventListener('load', function () { document.querySelectorAll('svg.plot').forEach(function (s) { var b = s.getBoundingClientRect(); s.setAttribute('data-drawn', Math.round(b.width) + 'x' + Math.round(b.height) + ':' + s.querySelectorAll('*').length); }); document.body.setAttribute('data-ready', 'yes'); });</script>\n",
+    figure_grid(
+        &mut o,
+        &[
+            ("plot-residuals", "Residuals across the image", residual_plot(cal, observations)),
+            ("plot-coverage", "Coverage and where more shots are needed", coverage_svg),
+            ("plot-view-errors", "Error per image", view_error_plot(cal)),
+            ("plot-distortion", "Distortion field", distortion_plot(cal)),
+        ],
     );
+    page::drawn_size_script(&mut o, "*");
     o.push_str("</body></html>\n");
     o
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn nice_numbers_for_legends() {
-        assert_eq!(nice(0.23), 0.2);
-        assert_eq!(nice(0.8), 1.0);
-        assert_eq!(nice(4.0), 5.0);
-        assert_eq!(nice(31.0), 20.0);
-    }
 }

@@ -1,6 +1,6 @@
 //! The report renders in a real browser with every plot present, and escapes what it is given.
 
-use std::process::Command;
+mod headless;
 
 use facetcal_model::files::{
     CALIBRATION_FORMAT, CalibrationFile, Correlation, FILES_VERSION, ParameterEstimate,
@@ -98,61 +98,21 @@ fn input_strings_are_escaped() {
     assert!(!html.contains("http://") && !html.contains("https://"));
 }
 
-fn chromium() -> Option<std::path::PathBuf> {
-    ["/usr/bin/chromium", "/usr/bin/chromium-browser"]
-        .iter()
-        .map(std::path::PathBuf::from)
-        .find(|p| p.exists())
-}
-
 /// Loads the report in headless Chromium and reads the DOM after the page's load handler ran:
 /// every plot must have been laid out with a non-zero size and its drawn elements.
 #[test]
 fn report_renders_in_headless_chromium() {
-    let Some(browser) = chromium() else {
-        if std::env::var_os("CI").is_some() {
-            panic!("chromium is not installed: .ci/run must install it");
-        }
-        eprintln!("SKIPPED: chromium not found, so the report was not rendered in a browser");
-        return;
-    };
     let (cal, obs) = sample();
     let html = facetcal_report::calibration_html("report test", &cal, &obs);
     let dir = tempfile::tempdir().unwrap();
     let page = dir.path().join("report.html");
     std::fs::write(&page, html).unwrap();
-    let out = Command::new(browser)
-        .args([
-            "--headless",
-            "--no-sandbox",
-            "--disable-gpu",
-            "--disable-quic",
-            "--no-first-run",
-            "--disable-background-networking",
-            "--disable-component-update",
-            "--disable-sync",
-            "--virtual-time-budget=3000",
-        ])
-        .arg(format!("--user-data-dir={}", dir.path().join("profile").display()))
-        .arg("--dump-dom")
-        .arg(format!("file://{}", page.display()))
-        .output()
-        .unwrap();
-    let dom = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        dom.contains("data-ready=\"yes\""),
-        "page did not finish loading: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let drawn: Vec<&str> =
-        dom.match_indices("data-drawn=\"").map(|(i, _)| &dom[i + 12..i + 40]).collect();
-    assert_eq!(drawn.len(), 4, "four plots");
-    for d in drawn {
-        let d = &d[..d.find('"').unwrap()];
-        let (size, count) = d.split_once(':').unwrap();
-        let (w, h) = size.split_once('x').unwrap();
-        let (w, h, count): (u32, u32, u32) =
-            (w.parse().unwrap(), h.parse().unwrap(), count.parse().unwrap());
-        assert!(w > 100 && h > 50 && count > 5, "plot drawn as {d}");
+    let Some(plots) = headless::rendered_plots(&page, &dir.path().join("profile")) else {
+        headless::no_chromium("the report");
+        return;
+    };
+    assert_eq!(plots.len(), 4, "four plots");
+    for (w, h, count) in plots {
+        assert!(w > 100 && h > 50 && count > 5, "plot drawn as {w} x {h} with {count} elements");
     }
 }
