@@ -291,7 +291,7 @@ impl NodeIndex {
     /// Up to `n` nearest nodes no farther than `limit`, as `(distance, index)`, nearest first
     /// (ties by index). A finite limit stops the search early.
     pub fn nearest_within(&self, p: &Point2<f64>, n: usize, limit: f64) -> Vec<(f64, usize)> {
-        // Selected on the squared distance, as a k-d tree does, then ordered by distance.
+        // Selected on the squared distance, then ordered by distance (ties by index).
         let mut best: Vec<(f64, usize)> = Vec::with_capacity(n + 1);
         if n == 0 || self.pos.is_empty() || !(p.x.is_finite() && p.y.is_finite()) {
             return best;
@@ -499,7 +499,7 @@ impl<'a> Builder<'a> {
         Builder { nodes, index: NodeIndex::new(&pos), owner: vec![None; nodes.len()], opts }
     }
 
-    /// The nodes' k-d tree.
+    /// The nodes' neighbour index.
     pub fn index(&self) -> &NodeIndex {
         &self.index
     }
