@@ -15,10 +15,8 @@
 //! and repeats outward, so that strong lens distortion, which is smooth but far from
 //! projective over a whole face, does not stop it.
 
-use std::collections::{BTreeMap, BTreeSet};
-use std::num::NonZero;
+use std::collections::BTreeMap;
 
-use kiddo::{ImmutableKdTree, SquaredEuclidean};
 use nalgebra::{Matrix2, Point2, Vector2};
 
 use crate::MatchOptions;
@@ -69,39 +67,290 @@ pub(crate) struct Component {
     pub cells: BTreeMap<Cell, usize>,
 }
 
-/// The k-d tree over node positions, with ties broken by index so results never depend on the
-/// tree's internal order.
+/// Read access to a lattice's cells, so that the hot fits can run on a dense [`Grid`] while
+/// callers holding a `BTreeMap` keep theirs.
+pub(crate) trait Cells {
+    /// The node at `c`, if any.
+    fn at(&self, c: Cell) -> Option<usize>;
+
+    /// Calls `f(di, dj, node)` for every cell within Chebyshev distance `radius` of `at` but
+    /// `at` itself, in increasing `(di, dj)` order.
+    fn around<F: FnMut(i32, i32, usize)>(&self, at: Cell, radius: i32, mut f: F) {
+        for di in -radius..=radius {
+            for dj in -radius..=radius {
+                if (di, dj) != (0, 0) {
+                    if let Some(k) = self.at((at.0 + di, at.1 + dj)) {
+                        f(di, dj, k);
+                    }
+                }
+            }
+        }
+    }
+}
+
+impl Cells for BTreeMap<Cell, usize> {
+    fn at(&self, c: Cell) -> Option<usize> {
+        self.get(&c).copied()
+    }
+}
+
+/// A dense array over a rectangle of lattice cells that widens as cells are set: a lookup is
+/// an index computation instead of a tree search, which dominated growth and verification.
+#[derive(Clone, Debug)]
+pub(crate) struct Dense<T> {
+    lo: Cell,
+    w: i32,
+    h: i32,
+    fill: T,
+    v: Vec<T>,
+}
+
+impl<T: Copy> Dense<T> {
+    pub fn new(fill: T) -> Dense<T> {
+        Dense { lo: (0, 0), w: 0, h: 0, fill, v: Vec::new() }
+    }
+
+    fn index(&self, c: Cell) -> Option<usize> {
+        let (i, j) = (c.0.checked_sub(self.lo.0)?, c.1.checked_sub(self.lo.1)?);
+        (i >= 0 && j >= 0 && i < self.w && j < self.h).then(|| (i * self.h + j) as usize)
+    }
+
+    pub fn get(&self, c: Cell) -> T {
+        self.index(c).map_or(self.fill, |k| self.v[k])
+    }
+
+    pub fn set(&mut self, c: Cell, t: T) {
+        if self.index(c).is_none() {
+            self.widen(c);
+        }
+        if let Some(k) = self.index(c) {
+            self.v[k] = t;
+        }
+    }
+
+    /// Widens the rectangle to hold `c`, with a margin so that growth reallocates rarely.
+    fn widen(&mut self, c: Cell) {
+        const MARGIN: i32 = 8;
+        let (lo, hi) = if self.v.is_empty() {
+            ((c.0 - MARGIN, c.1 - MARGIN), (c.0 + MARGIN, c.1 + MARGIN))
+        } else {
+            let hi = (self.lo.0 + self.w - 1, self.lo.1 + self.h - 1);
+            let lo0 = if c.0 < self.lo.0 { c.0 - MARGIN } else { self.lo.0 };
+            let lo1 = if c.1 < self.lo.1 { c.1 - MARGIN } else { self.lo.1 };
+            let hi0 = if c.0 > hi.0 { c.0 + MARGIN } else { hi.0 };
+            let hi1 = if c.1 > hi.1 { c.1 + MARGIN } else { hi.1 };
+            ((lo0, lo1), (hi0, hi1))
+        };
+        let mut next = Dense {
+            lo,
+            w: hi.0 - lo.0 + 1,
+            h: hi.1 - lo.1 + 1,
+            fill: self.fill,
+            v: vec![self.fill; ((hi.0 - lo.0 + 1) * (hi.1 - lo.1 + 1)) as usize],
+        };
+        for i in 0..self.w {
+            for j in 0..self.h {
+                let c = (self.lo.0 + i, self.lo.1 + j);
+                if let Some(k) = next.index(c) {
+                    next.v[k] = self.v[(i * self.h + j) as usize];
+                }
+            }
+        }
+        *self = next;
+    }
+}
+
+/// The cells of a lattice as a dense array of node indices.
+pub(crate) type Grid = Dense<Option<usize>>;
+
+impl Grid {
+    pub fn from_map(cells: &BTreeMap<Cell, usize>) -> Grid {
+        let mut g = Grid::new(None);
+        for (&c, &k) in cells {
+            g.set(c, Some(k));
+        }
+        g
+    }
+
+    /// Occupied cells in increasing `(i, j)` order, the order of a `BTreeMap<Cell, _>`.
+    pub fn occupied(&self) -> impl Iterator<Item = (Cell, usize)> + '_ {
+        let h = self.h.max(1);
+        self.v.iter().enumerate().filter_map(move |(k, v)| {
+            let k = k as i32;
+            v.map(|n| ((self.lo.0 + k / h, self.lo.1 + k % h), n))
+        })
+    }
+
+    pub fn to_map(&self) -> BTreeMap<Cell, usize> {
+        self.occupied().collect()
+    }
+}
+
+impl Cells for Grid {
+    fn at(&self, c: Cell) -> Option<usize> {
+        self.get(c)
+    }
+
+    // Walks the array rows directly; the fits' neighbour gathering is the hottest lookup.
+    fn around<F: FnMut(i32, i32, usize)>(&self, at: Cell, radius: i32, mut f: F) {
+        let (w, h, r) = (self.w as i64, self.h as i64, radius as i64);
+        let (i0, j0) = (at.0 as i64 - self.lo.0 as i64, at.1 as i64 - self.lo.1 as i64);
+        let (dj_lo, dj_hi) = ((-r).max(-j0), r.min(h - 1 - j0));
+        for di in (-r).max(-i0)..=r.min(w - 1 - i0) {
+            let row = (i0 + di) * h + j0;
+            for dj in dj_lo..=dj_hi {
+                if (di, dj) != (0, 0) {
+                    if let Some(&Some(k)) = self.v.get((row + dj) as usize) {
+                        f(di as i32, dj as i32, k);
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// A bucket grid over node positions for exact nearest-neighbour queries, with ties broken by
+/// index so results never depend on the storage order. Buckets hold about one node each, so a
+/// query near the lattice reads a few rings of buckets; this replaced a k-d tree whose result
+/// collection cost more than the search.
 pub(crate) struct NodeIndex {
-    tree: Option<ImmutableKdTree<f64, 2>>,
-    len: usize,
+    pos: Vec<Point2<f64>>,
+    lo: Point2<f64>,
+    size: f64,
+    w: i64,
+    h: i64,
+    /// Bucket `b` holds `items[start[b]..start[b + 1]]`, in increasing index order.
+    start: Vec<usize>,
+    items: Vec<usize>,
 }
 
 impl NodeIndex {
     pub fn new(pos: &[Point2<f64>]) -> NodeIndex {
-        let pts: Vec<[f64; 2]> = pos.iter().map(|p| [p.x, p.y]).collect();
-        let tree = (!pts.is_empty()).then(|| ImmutableKdTree::new_from_slice(&pts));
-        NodeIndex { tree, len: pts.len() }
+        let (mut lo, mut hi) = (Point2::new(f64::INFINITY, f64::INFINITY), Point2::origin());
+        hi.x = f64::NEG_INFINITY;
+        hi.y = f64::NEG_INFINITY;
+        for p in pos {
+            lo = Point2::new(lo.x.min(p.x), lo.y.min(p.y));
+            hi = Point2::new(hi.x.max(p.x), hi.y.max(p.y));
+        }
+        let n = pos.len().max(1) as f64;
+        let (ex, ey) = (hi.x - lo.x, hi.y - lo.y);
+        // About one node per bucket over the bounding box; a degenerate box gets buckets along
+        // its longer side.
+        let mut size = ((ex * ey) / n).sqrt();
+        if !(size.is_finite() && size > 0.0) || ex.max(ey) / size > 4.0 * n {
+            size = ex.max(ey) / n;
+        }
+        if !(size.is_finite() && size > 0.0) {
+            size = 1.0;
+        }
+        let cells = |e: f64| ((e / size).floor() as i64).clamp(0, 4 * pos.len() as i64) + 1;
+        let (w, h) = if pos.is_empty() { (0, 0) } else { (cells(ex), cells(ey)) };
+        let mut index = NodeIndex {
+            pos: pos.to_vec(),
+            lo,
+            size,
+            w,
+            h,
+            start: vec![0; (w * h) as usize + 1],
+            items: vec![0; pos.len()],
+        };
+        let buckets: Vec<usize> = pos.iter().map(|p| index.bucket_of(p)).collect();
+        for &b in &buckets {
+            index.start[b + 1] += 1;
+        }
+        for b in 0..(w * h) as usize {
+            index.start[b + 1] += index.start[b];
+        }
+        let mut fill = index.start.clone();
+        for (k, &b) in buckets.iter().enumerate() {
+            index.items[fill[b]] = k;
+            fill[b] += 1;
+        }
+        index
+    }
+
+    /// Bucket coordinates of `p`, unclamped (a query may lie outside the grid).
+    fn coords(&self, p: &Point2<f64>) -> (i64, i64) {
+        // Saturating float-to-int casts keep a far-away query finite.
+        const FAR: i64 = 1 << 40;
+        let c = |v: f64, lo: f64| (((v - lo) / self.size).floor() as i64).clamp(-FAR, FAR);
+        (c(p.x, self.lo.x), c(p.y, self.lo.y))
+    }
+
+    fn bucket_of(&self, p: &Point2<f64>) -> usize {
+        let (i, j) = self.coords(p);
+        (i.clamp(0, self.w - 1) * self.h + j.clamp(0, self.h - 1)) as usize
     }
 
     /// Up to `n` nearest nodes as `(distance, index)`, nearest first.
     pub fn nearest(&self, p: &Point2<f64>, n: usize) -> Vec<(f64, usize)> {
-        let (Some(tree), Some(k)) = (&self.tree, NonZero::new(n.min(self.len))) else {
-            return Vec::new();
+        self.nearest_within(p, n, f64::INFINITY)
+    }
+
+    /// Up to `n` nearest nodes no farther than `limit`, as `(distance, index)`, nearest first
+    /// (ties by index). A finite limit stops the search early.
+    pub fn nearest_within(&self, p: &Point2<f64>, n: usize, limit: f64) -> Vec<(f64, usize)> {
+        // Selected on the squared distance, then ordered by distance (ties by index).
+        let mut best: Vec<(f64, usize)> = Vec::with_capacity(n + 1);
+        if n == 0 || self.pos.is_empty() || !(p.x.is_finite() && p.y.is_finite()) {
+            return best;
+        }
+        let (ci, cj) = self.coords(p);
+        // Chebyshev bucket distance from the query's bucket to the grid, and to its far corner.
+        let gap = |c: i64, len: i64| (-c).max(c - (len - 1)).max(0);
+        let first = gap(ci, self.w).max(gap(cj, self.h));
+        let last = ci.max(self.w - 1 - ci).max(cj).max(self.h - 1 - cj);
+        let visit = |i: i64, j: i64, best: &mut Vec<(f64, usize)>| {
+            let b = (i * self.h + j) as usize;
+            for &k in &self.items[self.start[b]..self.start[b + 1]] {
+                let (dx, dy) = (self.pos[k].x - p.x, self.pos[k].y - p.y);
+                let d2 = dx * dx + dy * dy;
+                let worse = |e: &(f64, usize)| e.0.total_cmp(&d2).then(e.1.cmp(&k)).is_lt();
+                if best.len() == n && worse(&best[n - 1]) {
+                    continue;
+                }
+                let at = best.partition_point(worse);
+                best.insert(at, (d2, k));
+                best.truncate(n);
+            }
         };
-        let mut out: Vec<(f64, usize)> = tree
-            .nearest_n::<SquaredEuclidean>(&[p.x, p.y], k)
-            .into_iter()
-            .map(|nn| (nn.distance.sqrt(), nn.item as usize))
-            .collect();
-        out.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
-        out
+        let (j_lo, j_hi) = (0, self.h - 1);
+        for r in first..=last {
+            // Nodes at ring r or beyond lie at least r - 1 bucket sides away (less a margin for
+            // the rounding of their bucket coordinates).
+            let reach = (r as f64 - 1.01) * self.size;
+            if reach > limit || (best.len() == n && best[n - 1].0.sqrt() < reach) {
+                break;
+            }
+            // The ring of buckets at Chebyshev distance r, clipped to the grid.
+            for i in (ci - r).max(0)..=(ci + r).min(self.w - 1) {
+                if i == ci - r || i == ci + r {
+                    for j in (cj - r).max(j_lo)..=(cj + r).min(j_hi) {
+                        visit(i, j, &mut best);
+                    }
+                } else {
+                    for j in [cj - r, cj + r] {
+                        if (j_lo..=j_hi).contains(&j) {
+                            visit(i, j, &mut best);
+                        }
+                    }
+                }
+            }
+        }
+        for e in &mut best {
+            e.0 = e.0.sqrt();
+        }
+        best.retain(|e| e.0 <= limit);
+        best.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        best
     }
 }
 
 /// Fits the local map lattice -> image from the cells of `cells` within Chebyshev distance
 /// `radius` of `at`, leaving out `at` itself.
-pub(crate) fn local_map(
-    cells: &BTreeMap<Cell, usize>,
+pub(crate) fn local_map<C: Cells + ?Sized>(
+    cells: &C,
     nodes: &[Node],
     at: Cell,
     radius: i32,
@@ -112,22 +361,13 @@ pub(crate) fn local_map(
     let mut dst = [Point2::origin(); 48];
     let mut n = 0;
     let (mut is, mut js) = (0u32, 0u32);
-    let radius = radius.min(3);
-    for di in -radius..=radius {
-        for dj in -radius..=radius {
-            if di == 0 && dj == 0 {
-                continue;
-            }
-            let c = (at.0 + di, at.1 + dj);
-            if let Some(&k) = cells.get(&c) {
-                src[n] = Point2::new(c.0 as f64, c.1 as f64);
-                dst[n] = nodes[k].pos;
-                n += 1;
-                is |= 1 << (di + 3);
-                js |= 1 << (dj + 3);
-            }
-        }
-    }
+    cells.around(at, radius.min(3), |di, dj, k| {
+        src[n] = Point2::new((at.0 + di) as f64, (at.1 + dj) as f64);
+        dst[n] = nodes[k].pos;
+        n += 1;
+        is |= 1 << (di + 3);
+        js |= 1 << (dj + 3);
+    });
     let (src, dst) = (&src[..n], &dst[..n]);
     if n >= 7 && is.count_ones() >= 3 && js.count_ones() >= 3 {
         if let Some(h) = fit_homography(src, dst) {
@@ -145,7 +385,7 @@ struct Prediction {
     spacing: f64,
 }
 
-fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<Prediction> {
+fn predict<C: Cells + ?Sized>(cells: &C, nodes: &[Node], at: Cell) -> Option<Prediction> {
     let map = local_map(cells, nodes, at, 2).or_else(|| local_map(cells, nodes, at, 3));
     if let Some(m) = map {
         let p = Point2::new(at.0 as f64, at.1 as f64);
@@ -161,9 +401,9 @@ fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<Pr
     }
     // A single line of nodes: extrapolate along it.
     for d in [(1, 0), (-1, 0), (0, 1), (0, -1)] {
-        let p1 = cells.get(&(at.0 - d.0, at.1 - d.1));
-        let p2 = cells.get(&(at.0 - 2 * d.0, at.1 - 2 * d.1));
-        if let (Some(&a), Some(&b)) = (p1, p2) {
+        let p1 = cells.at((at.0 - d.0, at.1 - d.1));
+        let p2 = cells.at((at.0 - 2 * d.0, at.1 - 2 * d.1));
+        if let (Some(a), Some(b)) = (p1, p2) {
             let step = nodes[a].pos - nodes[b].pos;
             return Some(Prediction {
                 point: nodes[a].pos + step,
@@ -178,13 +418,7 @@ fn predict(cells: &BTreeMap<Cell, usize>, nodes: &[Node], at: Cell) -> Option<Pr
 /// Whether a detection's own shape agrees with the lattice where it would sit: its edge or side
 /// directions within 25 degrees of the local lattice steps (the detector's edge angles on steep faces are off by more than 15), its sizes within a factor 1.5 of
 /// its neighbours'. Clutter that happens to fall inside the gate rarely passes both.
-fn agrees(
-    cells: &BTreeMap<Cell, usize>,
-    nodes: &[Node],
-    at: Cell,
-    k: usize,
-    pred: &Prediction,
-) -> bool {
+fn agrees(cells: &Grid, nodes: &[Node], at: Cell, k: usize, pred: &Prediction) -> bool {
     let n = &nodes[k];
     if let (Some([h1, h2]), Some([e1, e2])) = (n.axes, pred.steps) {
         let c = 25f64.to_radians().cos();
@@ -203,7 +437,7 @@ fn agrees(
                 if (di, dj) == (0, 0) {
                     continue;
                 }
-                let Some(&o) = cells.get(&(at.0 + di, at.1 + dj)) else { continue };
+                let Some(o) = cells.at((at.0 + di, at.1 + dj)) else { continue };
                 let axis = (di + dj).abs() == 1;
                 if parity_flipped(n, &nodes[o]).is_some_and(|f| f != axis) {
                     return false;
@@ -215,7 +449,7 @@ fn agrees(
         let (mut sum, mut count) = ([0.0, 0.0], 0.0);
         for di in -1..=1 {
             for dj in -1..=1 {
-                if let Some(s) = cells.get(&(at.0 + di, at.1 + dj)).and_then(|&o| nodes[o].size) {
+                if let Some(s) = cells.at((at.0 + di, at.1 + dj)).and_then(|o| nodes[o].size) {
                     sum[0] += s[0];
                     sum[1] += s[1];
                     count += 1.0;
@@ -235,11 +469,11 @@ fn agrees(
 }
 
 /// Number of cells of `cells` among the 8 neighbours of `at`.
-fn support(cells: &BTreeMap<Cell, usize>, at: Cell) -> usize {
+fn support(cells: &Grid, at: Cell) -> usize {
     let mut n = 0;
     for di in -1..=1 {
         for dj in -1..=1 {
-            if (di, dj) != (0, 0) && cells.contains_key(&(at.0 + di, at.1 + dj)) {
+            if (di, dj) != (0, 0) && cells.at((at.0 + di, at.1 + dj)).is_some() {
                 n += 1;
             }
         }
@@ -265,7 +499,7 @@ impl<'a> Builder<'a> {
         Builder { nodes, index: NodeIndex::new(&pos), owner: vec![None; nodes.len()], opts }
     }
 
-    /// The nodes' k-d tree.
+    /// The nodes' neighbour index.
     pub fn index(&self) -> &NodeIndex {
         &self.index
     }
@@ -337,72 +571,88 @@ impl<'a> Builder<'a> {
             let (va, vb) =
                 (self.nodes[a].pos - self.nodes[s].pos, self.nodes[b].pos - self.nodes[s].pos);
             let (ea, eb) = if cross(&va, &vb) > 0.0 { (a, b) } else { (b, a) };
-            let mut comp = Component::default();
+            let mut grid = Grid::new(None);
             for (c, k) in [((0, 0), s), ((1, 0), ea), ((0, 1), eb)] {
-                comp.cells.insert(c, k);
+                grid.set(c, Some(k));
                 self.owner[k] = Some(id);
             }
-            self.grow(id, &mut comp);
-            self.verify(&mut comp);
-            if comp.cells.len() < self.opts.min_nodes {
-                for &k in comp.cells.values() {
+            self.grow(id, &mut grid);
+            let kept = self.verify(&mut grid);
+            if kept < self.opts.min_nodes {
+                for (_, k) in grid.occupied() {
                     self.owner[k] = None;
                 }
                 continue;
             }
-            out.push(comp);
+            out.push(Component { cells: grid.to_map() });
         }
         out
     }
 
-    fn grow(&mut self, id: usize, comp: &mut Component) {
+    fn grow(&mut self, id: usize, cells: &mut Grid) {
         // Rounds over the frontier: the cells next to those accepted in the previous round,
         // strongest support first. A cell that failed is tried again only once its support has
         // grown.
-        let mut failed: BTreeMap<Cell, usize> = BTreeMap::new();
-        let mut pending: BTreeSet<Cell> = BTreeSet::new();
-        let around = |c: Cell, cells: &BTreeMap<Cell, usize>, pending: &mut BTreeSet<Cell>| {
+        let mut failed: Dense<Option<usize>> = Dense::new(None);
+        let mut queued: Dense<bool> = Dense::new(false);
+        let mut pending: Vec<Cell> = Vec::new();
+        let push = |q: Cell, pending: &mut Vec<Cell>, queued: &mut Dense<bool>| {
+            if !queued.get(q) {
+                queued.set(q, true);
+                pending.push(q);
+            }
+        };
+        let around = |c: Cell, cells: &Grid, pending: &mut Vec<Cell>, queued: &mut Dense<bool>| {
             for d in [(1, 0), (-1, 0), (0, 1), (0, -1)] {
                 let q = (c.0 + d.0, c.1 + d.1);
-                if !cells.contains_key(&q) {
-                    pending.insert(q);
+                if cells.at(q).is_none() {
+                    push(q, pending, queued);
                 }
             }
         };
-        for &c in comp.cells.keys() {
-            around(c, &comp.cells, &mut pending);
+        let start: Vec<Cell> = cells.occupied().map(|(c, _)| c).collect();
+        for c in start {
+            around(c, cells, &mut pending, &mut queued);
         }
+        let mut todo: Vec<(usize, Cell)> = Vec::new();
         while !pending.is_empty() {
-            let mut todo: Vec<(usize, Cell)> = std::mem::take(&mut pending)
-                .into_iter()
-                .filter(|q| !comp.cells.contains_key(q))
-                .map(|q| (support(&comp.cells, q), q))
-                .filter(|&(sup, q)| failed.get(&q).is_none_or(|&f| sup > f))
-                .collect();
-            todo.sort_by(|x, y| y.0.cmp(&x.0).then(x.1.cmp(&y.1)));
-            for (_, q) in todo {
-                if comp.cells.contains_key(&q) {
+            todo.clear();
+            for q in pending.drain(..) {
+                queued.set(q, false);
+                if cells.at(q).is_some() {
                     continue;
                 }
-                let sup = support(&comp.cells, q);
-                match self.accept(&comp.cells, q) {
+                let sup = support(cells, q);
+                if failed.get(q).is_none_or(|f| sup > f) {
+                    todo.push((sup, q));
+                }
+            }
+            // Cells are distinct, so this order is total: the same whatever order they were
+            // queued in.
+            todo.sort_unstable_by(|x, y| y.0.cmp(&x.0).then(x.1.cmp(&y.1)));
+            for &(_, q) in &todo {
+                if cells.at(q).is_some() {
+                    continue;
+                }
+                let sup = support(cells, q);
+                match self.accept(cells, q) {
                     Some(k) => {
-                        comp.cells.insert(q, k);
+                        cells.set(q, Some(k));
                         self.owner[k] = Some(id);
-                        failed.remove(&q);
-                        around(q, &comp.cells, &mut pending);
+                        failed.set(q, None);
+                        around(q, cells, &mut pending, &mut queued);
                         // Failed cells next to a new node have more support now.
                         for di in -1..=1 {
                             for dj in -1..=1 {
                                 let r = (q.0 + di, q.1 + dj);
-                                if failed.contains_key(&r) {
-                                    pending.insert(r);
+                                if failed.get(r).is_some() {
+                                    push(r, &mut pending, &mut queued);
                                 }
                             }
                         }
                     }
                     None => {
-                        failed.insert(q, sup);
+                        failed.set(q, Some(sup));
                     }
                 }
             }
@@ -410,10 +660,11 @@ impl<'a> Builder<'a> {
     }
 
     /// The free detection nearest to the prediction of `q`, if it lies inside the gate.
-    fn accept(&self, cells: &BTreeMap<Cell, usize>, q: Cell) -> Option<usize> {
+    fn accept(&self, cells: &Grid, q: Cell) -> Option<usize> {
         let pred = predict(cells, self.nodes, q)?;
         let gate = self.opts.gate * pred.spacing;
-        let near = self.index.nearest(&pred.point, 2);
+        // Only detections inside the gate matter, which bounds the search.
+        let near = self.index.nearest_within(&pred.point, 2, gate);
         let &(d, k) = near.first()?;
         if d > gate || self.owner[k].is_some() {
             return None;
@@ -427,17 +678,187 @@ impl<'a> Builder<'a> {
         agrees(cells, self.nodes, q, k, &pred).then_some(k)
     }
 
-    /// Leave-one-out residual test: a node whose position disagrees with the fit of its
-    /// neighbours by more than `residual` x the local spacing is removed, worst first within
-    /// each neighbourhood, until every node passes.
-    fn verify(&mut self, comp: &mut Component) {
+    /// Leave-one-out residual test ([`prune`]); the removed nodes become free again. Returns
+    /// the number of nodes kept.
+    fn verify(&mut self, cells: &mut Grid) -> usize {
+        let pruned = prune(cells, self.nodes, self.opts.residual);
+        for &(_, k) in &pruned.removed {
+            self.owner[k] = None;
+        }
+        pruned.kept
+    }
+}
+
+/// What [`prune`] removed, and the residual of every node it kept.
+pub(crate) struct Pruned {
+    /// The removed cells and their nodes, in the order removed.
+    pub removed: Vec<(Cell, usize)>,
+    /// Nodes kept.
+    pub kept: usize,
+    /// [`loo_residual`] of each kept cell against the kept cells.
+    pub residual: Dense<f64>,
+}
+
+/// Leave-one-out residual test: a node whose position disagrees with the fit of its
+/// neighbours by more than `tol` x the local spacing is removed, worst first within each
+/// 5 x 5 neighbourhood, for at most 8 rounds.
+///
+/// A residual depends only on the cells within Chebyshev distance 3 (the widest local fit, and
+/// the two steps of a line), so after a round only those around the removed cells are refit;
+/// the outcome is that of refitting every node every round.
+pub(crate) fn prune(cells: &mut Grid, nodes: &[Node], tol: f64) -> Pruned {
+    let mut residual: Dense<f64> = Dense::new(f64::INFINITY);
+    let mut stale: Vec<Cell> = Vec::new();
+    let mut kept = 0;
+    for (c, k) in cells.occupied() {
+        residual.set(c, loo_residual(cells, nodes, c, k));
+        kept += 1;
+    }
+    let mut removed = Vec::new();
+    for _ in 0..8 {
+        let worst: Vec<Cell> = cells
+            .occupied()
+            .filter_map(|(c, _)| {
+                let r = residual.get(c);
+                let top = r > tol
+                    && (-2..=2).all(|di| {
+                        (-2..=2).all(|dj| {
+                            let o = (c.0 + di, c.1 + dj);
+                            cells.at(o).is_none() || residual.get(o) <= r
+                        })
+                    });
+                top.then_some(c)
+            })
+            .collect();
+        if worst.is_empty() {
+            break;
+        }
+        stale.clear();
+        for &c in &worst {
+            if let Some(k) = cells.at(c) {
+                cells.set(c, None);
+                removed.push((c, k));
+                kept -= 1;
+            }
+            for di in -3..=3 {
+                for dj in -3..=3 {
+                    stale.push((c.0 + di, c.1 + dj));
+                }
+            }
+        }
+        stale.sort_unstable();
+        stale.dedup();
+        for &c in &stale {
+            if let Some(k) = cells.at(c) {
+                residual.set(c, loo_residual(cells, nodes, c, k));
+            }
+        }
+    }
+    Pruned { removed, kept, residual }
+}
+
+/// The residual of node `k` at `c` against the fit of its neighbours, in units of the local
+/// spacing; `f64::INFINITY` when the neighbours cannot predict it.
+pub(crate) fn loo_residual<C: Cells + ?Sized>(cells: &C, nodes: &[Node], c: Cell, k: usize) -> f64 {
+    match predict(cells, nodes, c) {
+        Some(p) => (p.point - nodes[k].pos).norm() / p.spacing,
+        None => f64::INFINITY,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Exhaustive search, the definition of the `n` nearest neighbours (common practice as the
+    /// reference for any spatial index): every node by distance, then index.
+    fn exhaustive(pos: &[Point2<f64>], p: &Point2<f64>, n: usize, limit: f64) -> Vec<(f64, usize)> {
+        let mut all: Vec<(f64, usize)> = pos
+            .iter()
+            .enumerate()
+            .map(|(k, q)| {
+                let (dx, dy) = (q.x - p.x, q.y - p.y);
+                ((dx * dx + dy * dy).sqrt(), k)
+            })
+            .filter(|e| e.0 <= limit)
+            .collect();
+        all.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        all.truncate(n);
+        all
+    }
+
+    #[test]
+    fn bucket_index_finds_what_exhaustive_search_finds() {
+        // A slanted, unevenly filled point set with duplicates, then a collinear one.
+        let mut seed = 12345u64;
+        let mut next = || {
+            seed = seed.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            (seed >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let mut pos: Vec<Point2<f64>> = (0..400)
+            .map(|_| {
+                let (a, b) = (next() * 300.0, next() * 40.0);
+                Point2::new(a + 0.8 * b, 0.3 * a + b)
+            })
+            .collect();
+        pos.extend_from_within(..20);
+        let line: Vec<Point2<f64>> = (0..50).map(|i| Point2::new(3.0 * i as f64, 7.0)).collect();
+        for set in [&pos, &line] {
+            let index = NodeIndex::new(set);
+            let mut queries: Vec<Point2<f64>> = set.iter().step_by(7).copied().collect();
+            queries.extend([
+                Point2::new(-1e6, 5.0),
+                Point2::new(1e9, -1e9),
+                Point2::new(150.0, 60.0),
+            ]);
+            for q in &queries {
+                for n in [1, 2, 6, 9] {
+                    for limit in [f64::INFINITY, 4.0, 0.0] {
+                        assert_eq!(
+                            index.nearest_within(q, n, limit),
+                            exhaustive(set, q, n, limit),
+                            "query {q}, n {n}, limit {limit}"
+                        );
+                    }
+                }
+            }
+        }
+        assert!(NodeIndex::new(&[]).nearest(&Point2::origin(), 3).is_empty());
+    }
+
+    #[test]
+    fn pruning_refits_as_if_every_node_were_refit_every_round() {
+        // A 12 x 10 lattice under a projective map with a few displaced nodes, some of them
+        // neighbours, so that removals change the residuals of nodes around them.
+        let map = |i: f64, j: f64| {
+            let w = 1.0 + 0.01 * i - 0.006 * j;
+            Point2::new((40.0 + 21.0 * i + 3.0 * j) / w, (30.0 - 2.0 * i + 19.0 * j) / w)
+        };
+        let mut nodes = Vec::new();
+        let mut cells = BTreeMap::new();
+        for i in 0..12 {
+            for j in 0..10 {
+                let mut pos = map(i as f64, j as f64);
+                if [(3, 3), (4, 3), (8, 6), (0, 9), (11, 0)].contains(&(i, j)) {
+                    pos += Vector2::new(4.0 + i as f64, -3.0);
+                }
+                cells.insert((i, j), nodes.len());
+                nodes.push(Node {
+                    pos,
+                    axes: None,
+                    rectify: Matrix2::identity(),
+                    size: None,
+                    parity: false,
+                });
+            }
+        }
+        // The rule applied literally: every residual recomputed every round.
+        let tol = 0.15;
+        let mut want = cells.clone();
+        let mut want_removed = Vec::new();
         for _ in 0..8 {
-            let res: BTreeMap<Cell, f64> = comp
-                .cells
-                .iter()
-                .map(|(&c, &k)| (c, loo_residual(&comp.cells, self.nodes, c, k)))
-                .collect();
-            let tol = self.opts.residual;
+            let res: BTreeMap<Cell, f64> =
+                want.iter().map(|(&c, &k)| (c, loo_residual(&want, &nodes, c, k))).collect();
             let worst: Vec<Cell> = res
                 .iter()
                 .filter(|&(&c, &r)| {
@@ -450,27 +871,21 @@ impl<'a> Builder<'a> {
                 .map(|(&c, _)| c)
                 .collect();
             if worst.is_empty() {
-                return;
+                break;
             }
             for c in worst {
-                if let Some(k) = comp.cells.remove(&c) {
-                    self.owner[k] = None;
-                }
+                want_removed.push((c, want[&c]));
+                want.remove(&c);
             }
         }
-    }
-}
-
-/// The residual of node `k` at `c` against the fit of its neighbours, in units of the local
-/// spacing; `f64::INFINITY` when the neighbours cannot predict it.
-pub(crate) fn loo_residual(
-    cells: &BTreeMap<Cell, usize>,
-    nodes: &[Node],
-    c: Cell,
-    k: usize,
-) -> f64 {
-    match predict(cells, nodes, c) {
-        Some(p) => (p.point - nodes[k].pos).norm() / p.spacing,
-        None => f64::INFINITY,
+        assert!(want_removed.len() >= 5, "the displaced nodes are removed: {want_removed:?}");
+        let mut grid = Grid::from_map(&cells);
+        let got = prune(&mut grid, &nodes, tol);
+        assert_eq!(got.removed, want_removed);
+        assert_eq!(grid.to_map(), want);
+        assert_eq!(got.kept, want.len());
+        for (&c, &k) in &want {
+            assert_eq!(got.residual.get(c), loo_residual(&want, &nodes, c, k), "at {c:?}");
+        }
     }
 }

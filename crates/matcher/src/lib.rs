@@ -52,7 +52,7 @@ pub use output::{
     LeftOutReason, Rejection,
 };
 
-use lattice::{Builder, Cell, Component, Node, local_map, loo_residual};
+use lattice::{Builder, Cell, Component, Grid, Node, local_map, prune};
 use place::{CandidateView, Placement, SeenMark, inside, place, rotate, unrotate};
 
 /// How the matcher decides. Every tolerance is relative to the local feature spacing in the
@@ -458,35 +458,6 @@ fn probe_marks(
         .collect()
 }
 
-/// Removes the nodes of `cells` that fail the leave-one-out residual test, worst first within
-/// each 5 x 5 neighbourhood; returns the removed cells.
-fn prune(cells: &mut BTreeMap<Cell, usize>, nodes: &[Node], tol: f64) -> Vec<(Cell, usize)> {
-    let mut removed = Vec::new();
-    for _ in 0..8 {
-        let res: BTreeMap<Cell, f64> =
-            cells.iter().map(|(&c, &k)| (c, loo_residual(cells, nodes, c, k))).collect();
-        let worst: Vec<Cell> = res
-            .iter()
-            .filter(|&(&c, &r)| {
-                r > tol
-                    && (-2..=2).all(|di| {
-                        (-2..=2).all(|dj| res.get(&(c.0 + di, c.1 + dj)).is_none_or(|&o| o <= r))
-                    })
-            })
-            .map(|(&c, _)| c)
-            .collect();
-        if worst.is_empty() {
-            break;
-        }
-        for c in worst {
-            if let Some(k) = cells.remove(&c) {
-                removed.push((c, k));
-            }
-        }
-    }
-    removed
-}
-
 /// Mean image vectors of a component's two lattice axes.
 fn mean_axes(cells: &BTreeMap<Cell, usize>, nodes: &[Node]) -> [Vector2<f64>; 2] {
     let mut out = [Vector2::zeros(); 2];
@@ -851,13 +822,16 @@ fn identify_kind(
         }
     }
     // Per-face test of every final identity, then the output.
-    for (fi, mut cells) in face_cells {
+    for (fi, cells) in face_cells {
         let face = &target.faces()[fi];
-        for (_, k) in prune(&mut cells, &nodes, opts.residual) {
+        let mut grid = Grid::from_map(&cells);
+        let pruned = prune(&mut grid, &nodes, opts.residual);
+        for &(_, k) in &pruned.removed {
             result
                 .left_out
                 .push(LeftOut { detection: refs[k], reason: LeftOutReason::FitResidual });
         }
+        let cells = grid.to_map();
         let src: Vec<Point2<f64>> =
             cells.keys().map(|c| Point2::new(c.0 as f64, c.1 as f64)).collect();
         let dst: Vec<Point2<f64>> = cells.values().map(|&k| nodes[k].pos).collect();
@@ -888,7 +862,8 @@ fn identify_kind(
             points: Vec::new(),
         });
         for (&(col, row), &k) in &cells {
-            let residual = loo_residual(&cells, &nodes, (col, row), k);
+            // The residual test's own figure for the nodes it kept.
+            let residual = pruned.residual.get((col, row));
             let residual = residual.is_finite().then_some(residual);
             let (row, col) = (row as u32, col as u32);
             let corners: Vec<(u8, Point2<f64>)> = if on_nodes {
