@@ -16,6 +16,9 @@
 //! projective over a whole face, does not stop it.
 
 use std::collections::BTreeMap;
+use std::num::NonZero;
+
+use kiddo::{ImmutableKdTree, SquaredEuclidean};
 
 use nalgebra::{Matrix2, Point2, Vector2};
 
@@ -209,78 +212,21 @@ impl Cells for Grid {
     }
 }
 
-/// A bucket grid over node positions for exact nearest-neighbour queries, with ties broken by
-/// index so results never depend on the storage order. Buckets hold about one node each, so a
-/// query near the lattice reads a few rings of buckets; this replaced a k-d tree whose result
-/// collection cost more than the search.
+/// The k-d tree (kiddo) over node positions for exact nearest-neighbour queries, with ties
+/// broken by index so results never depend on the tree's internal order: the tree proposes,
+/// then every node at the deciding distance is collected and the list is ordered by
+/// (distance, index), with distances computed here so that they are the same whatever path the
+/// tree took.
 pub(crate) struct NodeIndex {
     pos: Vec<Point2<f64>>,
-    lo: Point2<f64>,
-    size: f64,
-    w: i64,
-    h: i64,
-    /// Bucket `b` holds `items[start[b]..start[b + 1]]`, in increasing index order.
-    start: Vec<usize>,
-    items: Vec<usize>,
+    tree: Option<ImmutableKdTree<f64, 2>>,
 }
 
 impl NodeIndex {
     pub fn new(pos: &[Point2<f64>]) -> NodeIndex {
-        let (mut lo, mut hi) = (Point2::new(f64::INFINITY, f64::INFINITY), Point2::origin());
-        hi.x = f64::NEG_INFINITY;
-        hi.y = f64::NEG_INFINITY;
-        for p in pos {
-            lo = Point2::new(lo.x.min(p.x), lo.y.min(p.y));
-            hi = Point2::new(hi.x.max(p.x), hi.y.max(p.y));
-        }
-        let n = pos.len().max(1) as f64;
-        let (ex, ey) = (hi.x - lo.x, hi.y - lo.y);
-        // About one node per bucket over the bounding box; a degenerate box gets buckets along
-        // its longer side.
-        let mut size = ((ex * ey) / n).sqrt();
-        if !(size.is_finite() && size > 0.0) || ex.max(ey) / size > 4.0 * n {
-            size = ex.max(ey) / n;
-        }
-        if !(size.is_finite() && size > 0.0) {
-            size = 1.0;
-        }
-        let cells = |e: f64| ((e / size).floor() as i64).clamp(0, 4 * pos.len() as i64) + 1;
-        let (w, h) = if pos.is_empty() { (0, 0) } else { (cells(ex), cells(ey)) };
-        let mut index = NodeIndex {
-            pos: pos.to_vec(),
-            lo,
-            size,
-            w,
-            h,
-            start: vec![0; (w * h) as usize + 1],
-            items: vec![0; pos.len()],
-        };
-        let buckets: Vec<usize> = pos.iter().map(|p| index.bucket_of(p)).collect();
-        for &b in &buckets {
-            index.start[b + 1] += 1;
-        }
-        for b in 0..(w * h) as usize {
-            index.start[b + 1] += index.start[b];
-        }
-        let mut fill = index.start.clone();
-        for (k, &b) in buckets.iter().enumerate() {
-            index.items[fill[b]] = k;
-            fill[b] += 1;
-        }
-        index
-    }
-
-    /// Bucket coordinates of `p`, unclamped (a query may lie outside the grid).
-    fn coords(&self, p: &Point2<f64>) -> (i64, i64) {
-        // Saturating float-to-int casts keep a far-away query finite.
-        const FAR: i64 = 1 << 40;
-        let c = |v: f64, lo: f64| (((v - lo) / self.size).floor() as i64).clamp(-FAR, FAR);
-        (c(p.x, self.lo.x), c(p.y, self.lo.y))
-    }
-
-    fn bucket_of(&self, p: &Point2<f64>) -> usize {
-        let (i, j) = self.coords(p);
-        (i.clamp(0, self.w - 1) * self.h + j.clamp(0, self.h - 1)) as usize
+        let pts: Vec<[f64; 2]> = pos.iter().map(|p| [p.x, p.y]).collect();
+        let tree = (!pts.is_empty()).then(|| ImmutableKdTree::new_from_slice(&pts));
+        NodeIndex { pos: pos.to_vec(), tree }
     }
 
     /// Up to `n` nearest nodes as `(distance, index)`, nearest first.
@@ -289,61 +235,47 @@ impl NodeIndex {
     }
 
     /// Up to `n` nearest nodes no farther than `limit`, as `(distance, index)`, nearest first
-    /// (ties by index). A finite limit stops the search early.
+    /// (ties by index).
     pub fn nearest_within(&self, p: &Point2<f64>, n: usize, limit: f64) -> Vec<(f64, usize)> {
-        // Selected on the squared distance, then ordered by distance (ties by index).
-        let mut best: Vec<(f64, usize)> = Vec::with_capacity(n + 1);
-        if n == 0 || self.pos.is_empty() || !(p.x.is_finite() && p.y.is_finite()) {
-            return best;
+        let (Some(tree), Some(k)) = (&self.tree, NonZero::new(n.min(self.pos.len()))) else {
+            return Vec::new();
+        };
+        if !(p.x.is_finite() && p.y.is_finite()) || limit.is_nan() || limit < 0.0 {
+            return Vec::new();
         }
-        let (ci, cj) = self.coords(p);
-        // Chebyshev bucket distance from the query's bucket to the grid, and to its far corner.
-        let gap = |c: i64, len: i64| (-c).max(c - (len - 1)).max(0);
-        let first = gap(ci, self.w).max(gap(cj, self.h));
-        let last = ci.max(self.w - 1 - ci).max(cj).max(self.h - 1 - cj);
-        let visit = |i: i64, j: i64, best: &mut Vec<(f64, usize)>| {
-            let b = (i * self.h + j) as usize;
-            for &k in &self.items[self.start[b]..self.start[b + 1]] {
-                let (dx, dy) = (self.pos[k].x - p.x, self.pos[k].y - p.y);
-                let d2 = dx * dx + dy * dy;
-                let worse = |e: &(f64, usize)| e.0.total_cmp(&d2).then(e.1.cmp(&k)).is_lt();
-                if best.len() == n && worse(&best[n - 1]) {
-                    continue;
-                }
-                let at = best.partition_point(worse);
-                best.insert(at, (d2, k));
-                best.truncate(n);
+        let q = [p.x, p.y];
+        let found: Vec<usize> = if limit.is_finite() {
+            tree.within_unsorted_exclusive::<SquaredEuclidean>(&q, limit * limit, true)
+                .into_iter()
+                .map(|nn| nn.item as usize)
+                .collect()
+        } else {
+            // One more than asked: when it lies strictly farther than the n-th, the n nearest
+            // are decided; a tie at the boundary takes every node at that distance.
+            let more = NonZero::new((k.get() + 1).min(self.pos.len())).unwrap_or(k);
+            let nn = tree.nearest_n::<SquaredEuclidean>(&q, more);
+            let decided = nn.len() <= k.get() || nn[k.get() - 1].distance < nn[k.get()].distance;
+            if decided {
+                nn.into_iter().map(|nn| nn.item as usize).collect()
+            } else {
+                let radius2 = nn[k.get() - 1].distance;
+                tree.within_unsorted_exclusive::<SquaredEuclidean>(&q, radius2, true)
+                    .into_iter()
+                    .map(|nn| nn.item as usize)
+                    .collect()
             }
         };
-        let (j_lo, j_hi) = (0, self.h - 1);
-        for r in first..=last {
-            // Nodes at ring r or beyond lie at least r - 1 bucket sides away (less a margin for
-            // the rounding of their bucket coordinates).
-            let reach = (r as f64 - 1.01) * self.size;
-            if reach > limit || (best.len() == n && best[n - 1].0.sqrt() < reach) {
-                break;
-            }
-            // The ring of buckets at Chebyshev distance r, clipped to the grid.
-            for i in (ci - r).max(0)..=(ci + r).min(self.w - 1) {
-                if i == ci - r || i == ci + r {
-                    for j in (cj - r).max(j_lo)..=(cj + r).min(j_hi) {
-                        visit(i, j, &mut best);
-                    }
-                } else {
-                    for j in [cj - r, cj + r] {
-                        if (j_lo..=j_hi).contains(&j) {
-                            visit(i, j, &mut best);
-                        }
-                    }
-                }
-            }
-        }
-        for e in &mut best {
-            e.0 = e.0.sqrt();
-        }
-        best.retain(|e| e.0 <= limit);
-        best.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
-        best
+        let mut out: Vec<(f64, usize)> = found
+            .into_iter()
+            .map(|i| {
+                let (dx, dy) = (self.pos[i].x - p.x, self.pos[i].y - p.y);
+                ((dx * dx + dy * dy).sqrt(), i)
+            })
+            .filter(|e| e.0 <= limit)
+            .collect();
+        out.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        out.truncate(n);
+        out
     }
 }
 
@@ -788,7 +720,7 @@ mod tests {
     }
 
     #[test]
-    fn bucket_index_finds_what_exhaustive_search_finds() {
+    fn node_index_finds_what_exhaustive_search_finds() {
         // A slanted, unevenly filled point set with duplicates, then a collinear one.
         let mut seed = 12345u64;
         let mut next = || {
