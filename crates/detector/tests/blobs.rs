@@ -107,6 +107,50 @@ fn dots_after_perspective_correction() {
     }
 }
 
+/// One rendered view's square corners against the truth: the detections, the errors of the
+/// corners matched within 3 px, and for the sigma check the sums of squared per-axis errors and
+/// of reported variances. Asserts that every detected corner is a true corner.
+struct SquareView {
+    squares: usize,
+    marks: usize,
+    errors: Errors,
+    err2: f64,
+    var: f64,
+}
+
+fn square_view(scene: &Scene, i: usize, opts: &DetectorOptions) -> SquareView {
+    let view = render_view(scene, i).unwrap();
+    let det = detect(&to_detector(&view.image), opts).unwrap();
+    let found: Vec<Point2<f64>> = det.squares.iter().flat_map(|s| s.corners).collect();
+    let sigmas: Vec<f64> = det.squares.iter().flat_map(|s| [s.sigma; 4]).collect();
+    let mut out = SquareView {
+        squares: det.squares.len(),
+        marks: det.marks.len(),
+        errors: Errors::default(),
+        err2: 0.0,
+        var: 0.0,
+    };
+    for t in &view.truth.visible {
+        out.errors.total += 1;
+        if let Some(f) = nearest(t.pixel, &found, 3.0) {
+            out.errors.add(f - t.pixel);
+            let k = found.iter().position(|p| *p == f).unwrap();
+            out.err2 += 0.5 * (f - t.pixel).norm_squared();
+            out.var += sigmas[k] * sigmas[k];
+        }
+    }
+    assert_eq!(found.len(), out.errors.n, "view {i}: every corner is a true corner");
+    out
+}
+
+fn merge(all: &mut Errors, e: &Errors) {
+    all.n += e.n;
+    all.total += e.total;
+    all.se += e.se;
+    all.sx += e.sx;
+    all.sy += e.sy;
+}
+
 #[test]
 fn square_corners() {
     let target = bundled("square-grid.json");
@@ -116,35 +160,22 @@ fn square_corners() {
     // Sums of squared errors and of reported variances, per axis, for the sigma check.
     let (mut err2, mut var) = (0.0, 0.0);
     for i in 0..POSES.len() {
-        let view = render_view(&scene, i).unwrap();
-        let det = detect(&to_detector(&view.image), &opts).unwrap();
-        let found: Vec<Point2<f64>> = det.squares.iter().flat_map(|s| s.corners).collect();
-        let sigmas: Vec<f64> = det.squares.iter().flat_map(|s| [s.sigma; 4]).collect();
-        let mut e = Errors::default();
-        for t in &view.truth.visible {
-            e.total += 1;
-            all.total += 1;
-            if let Some(f) = nearest(t.pixel, &found, 3.0) {
-                e.add(f - t.pixel);
-                all.add(f - t.pixel);
-                let k = found.iter().position(|p| *p == f).unwrap();
-                err2 += 0.5 * (f - t.pixel).norm_squared();
-                var += sigmas[k] * sigmas[k];
-            }
-        }
+        let v = square_view(&scene, i, &opts);
+        let e = &v.errors;
+        merge(&mut all, e);
+        (err2, var) = (err2 + v.err2, var + v.var);
         println!(
             "view {i}: squares {} marks {} matched {}/{} rms {:.4} bias {:?}",
-            det.squares.len(),
-            det.marks.len(),
+            v.squares,
+            v.marks,
             e.n,
             e.total,
             e.rms(),
             e.bias()
         );
-        assert_eq!(found.len(), e.n, "every corner is a true corner");
         // Squares that are lost lose their marks too (see the recall note below); no mark is
         // ever invented.
-        assert!(det.marks.len() <= 5, "no false marks");
+        assert!(v.marks <= 5, "no false marks");
     }
     let ratio = (err2 / var).sqrt();
     println!(
@@ -175,26 +206,16 @@ fn square_corners_under_a_strong_blur() {
     let opts = DetectorOptions::for_kind(PatternKind::SquareGrid);
     let mut all = Errors::default();
     for i in 0..POSES.len() {
-        let view = render_view(&scene, i).unwrap();
-        let det = detect(&to_detector(&view.image), &opts).unwrap();
-        let found: Vec<Point2<f64>> = det.squares.iter().flat_map(|s| s.corners).collect();
-        let mut e = Errors::default();
-        for t in &view.truth.visible {
-            e.total += 1;
-            all.total += 1;
-            if let Some(f) = nearest(t.pixel, &found, 3.0) {
-                e.add(f - t.pixel);
-                all.add(f - t.pixel);
-            }
-        }
+        let v = square_view(&scene, i, &opts);
+        merge(&mut all, &v.errors);
+        let e = &v.errors;
         println!(
             "blur 2.5, view {i}: squares {} matched {}/{} rms {:.4}",
-            det.squares.len(),
+            v.squares,
             e.n,
             e.total,
             e.rms()
         );
-        assert_eq!(found.len(), e.n, "every corner is a true corner");
     }
     println!("squares at blur 2.5: recall {:.4} rms {:.4}", all.recall(), all.rms());
     assert!(all.recall() >= 0.995, "recall {}", all.recall());
