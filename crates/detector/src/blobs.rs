@@ -733,7 +733,8 @@ fn measure_square(
         }
         // A second pass along the fitted line removes the coarse line's pixel-level error, at
         // the side's mean mid level.
-        let level = 0.5 * (median(&mut ink)? + median(&mut ground)?);
+        let (lo, hi) = (median(&mut ink)?, median(&mut ground)?);
+        let level = 0.5 * (lo + hi);
         let first = fit_line(&edge)?;
         let (lp, ld) = (first.point, first.dir);
         let mut n2 = Vector2::new(-ld.y, ld.x);
@@ -754,7 +755,6 @@ fn measure_square(
         line.var_offset *= shared;
         line.var_angle *= shared;
         // Edge width: the 25 % to 75 % rise of a Gaussian-blurred step is 1.349 sigma.
-        let (lo, hi) = (2.0 * level - median(&mut ground)?, median(&mut ground)?);
         let step = (edge2.len() / 8).max(1);
         for e in edge2.iter().step_by(step) {
             let at = |f: f64| profile_crossing(img, *e, n2, reach, Some(lo + f * (hi - lo)));
