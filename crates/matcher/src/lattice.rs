@@ -39,27 +39,30 @@ pub(crate) struct Node {
     pub rectify: Matrix2<f64>,
     /// Two sizes that vary slowly across a face: a dot's semi-axes, a square's mean sides.
     pub size: Option<[f64; 2]>,
-    /// The order of `axes` carries the checker parity: the sector from `axes[0]` to `axes[1]`
-    /// by increasing angle is dark. Lattice neighbours along an axis then list the same two
-    /// lines in swapped order, diagonal neighbours in the same order.
-    pub parity: bool,
+    /// For checker corners, the directions of `axes` as angles modulo pi, whose order carries
+    /// the checker parity: the sector from `axes[0]` to `axes[1]` by increasing angle is dark.
+    /// Lattice neighbours along an axis then list the same two lines in swapped order, diagonal
+    /// neighbours in the same order. `None` for nodes without parity.
+    pub parity: Option<[f64; 2]>,
 }
 
-/// Angle between two lines (directions taken modulo pi), in [0, pi/2].
-fn line_angle(a: &Vector2<f64>, b: &Vector2<f64>) -> f64 {
-    let c = (a.dot(b) / (a.norm() * b.norm())).abs().min(1.0);
-    c.acos()
+/// The direction of a line as an angle in [0, pi).
+pub(crate) fn line_direction(v: &Vector2<f64>) -> f64 {
+    v.y.atan2(v.x).rem_euclid(std::f64::consts::PI)
+}
+
+/// Angle between two lines given by their directions modulo pi, in [0, pi/2].
+fn line_angle(a: f64, b: f64) -> f64 {
+    let d = (a - b).abs();
+    d.min(std::f64::consts::PI - d)
 }
 
 /// Whether two checker corners have opposite parity (their edge lines in swapped order), or
 /// `None` when either carries no parity.
 pub(crate) fn parity_flipped(a: &Node, b: &Node) -> Option<bool> {
-    if !(a.parity && b.parity) {
-        return None;
-    }
-    let ([a0, a1], [b0, b1]) = (a.axes?, b.axes?);
-    let same = line_angle(&a0, &b0) + line_angle(&a1, &b1);
-    let swapped = line_angle(&a0, &b1) + line_angle(&a1, &b0);
+    let ([a0, a1], [b0, b1]) = (a.parity?, b.parity?);
+    let same = line_angle(a0, b0) + line_angle(a1, b1);
+    let swapped = line_angle(a0, b1) + line_angle(a1, b0);
     Some(swapped < same)
 }
 
@@ -68,6 +71,8 @@ pub(crate) fn parity_flipped(a: &Node, b: &Node) -> Option<bool> {
 pub(crate) struct Component {
     /// Node index of each lattice cell.
     pub cells: BTreeMap<Cell, usize>,
+    /// The residual test's figure for every cell, when the test settled on these cells.
+    pub residual: Option<BTreeMap<Cell, f64>>,
 }
 
 /// Read access to a lattice's cells, so that the hot fits can run on a dense [`Grid`] while
@@ -363,7 +368,7 @@ fn agrees(cells: &Grid, nodes: &[Node], at: Cell, k: usize, pred: &Prediction) -
     // Checker parity alternates along both axes: a node whose parity disagrees with a
     // neighbour's sits on the wrong lattice (a diagonal taken for an axis grows a sheared
     // lattice that fits the homography as well as the true one).
-    if n.parity {
+    if n.parity.is_some() {
         for di in -1..=1i32 {
             for dj in -1..=1i32 {
                 if (di, dj) == (0, 0) {
@@ -489,36 +494,59 @@ impl<'a> Builder<'a> {
 
     /// Grows every face candidate: seeds in order of regularity (then index), each grown as far
     /// as it goes; candidates smaller than `min_nodes` give their nodes back.
+    ///
+    /// A seed's axes depend on the geometry alone, so they are found only when its turn comes
+    /// and its node is still free: once a face has grown, its other nodes are never asked.
+    /// Passes by decreasing score, each in index order, are the order of a sort by
+    /// (score descending, index).
     pub fn build(&mut self) -> Vec<Component> {
-        let mut seeds: Vec<(usize, usize, usize, usize)> = (0..self.nodes.len())
-            .filter_map(|s| self.seed_axes(s).map(|(a, b, score)| (s, a, b, score)))
-            .collect();
-        seeds.sort_by(|x, y| y.3.cmp(&x.3).then(x.0.cmp(&y.0)));
+        let mut axes: Vec<Option<Option<(usize, usize, usize)>>> = vec![None; self.nodes.len()];
         let mut out: Vec<Component> = Vec::new();
-        for (s, a, b, _) in seeds {
-            if self.owner[s].is_some() || self.owner[a].is_some() || self.owner[b].is_some() {
-                continue;
-            }
-            let id = out.len();
-            let (va, vb) =
-                (self.nodes[a].pos - self.nodes[s].pos, self.nodes[b].pos - self.nodes[s].pos);
-            let (ea, eb) = if cross(&va, &vb) > 0.0 { (a, b) } else { (b, a) };
-            let mut grid = Grid::new(None);
-            for (c, k) in [((0, 0), s), ((1, 0), ea), ((0, 1), eb)] {
-                grid.set(c, Some(k));
-                self.owner[k] = Some(id);
-            }
-            self.grow(id, &mut grid);
-            let kept = self.verify(&mut grid);
-            if kept < self.opts.min_nodes {
-                for (_, k) in grid.occupied() {
-                    self.owner[k] = None;
+        for level in (0..=2).rev() {
+            for (s, known) in axes.iter_mut().enumerate() {
+                if self.owner[s].is_some() {
+                    continue;
                 }
-                continue;
+                let Some((a, b, score)) = *known.get_or_insert_with(|| self.seed_axes(s)) else {
+                    continue;
+                };
+                if score != level || self.owner[a].is_some() || self.owner[b].is_some() {
+                    continue;
+                }
+                if let Some(c) = self.grow_seed(out.len(), s, a, b) {
+                    out.push(c);
+                }
             }
-            out.push(Component { cells: grid.to_map() });
         }
         out
+    }
+
+    /// Grows and verifies one candidate from seed `s` with axis neighbours `a` and `b`, or gives
+    /// its nodes back when fewer than `min_nodes` remain.
+    fn grow_seed(&mut self, id: usize, s: usize, a: usize, b: usize) -> Option<Component> {
+        let (va, vb) =
+            (self.nodes[a].pos - self.nodes[s].pos, self.nodes[b].pos - self.nodes[s].pos);
+        let (ea, eb) = if cross(&va, &vb) > 0.0 { (a, b) } else { (b, a) };
+        let mut grid = Grid::new(None);
+        for (c, k) in [((0, 0), s), ((1, 0), ea), ((0, 1), eb)] {
+            grid.set(c, Some(k));
+            self.owner[k] = Some(id);
+        }
+        self.grow(id, &mut grid);
+        let pruned = prune(&mut grid, self.nodes, self.opts.residual);
+        for &(_, k) in &pruned.removed {
+            self.owner[k] = None;
+        }
+        if pruned.kept < self.opts.min_nodes {
+            for (_, k) in grid.occupied() {
+                self.owner[k] = None;
+            }
+            return None;
+        }
+        let residual = pruned
+            .settled
+            .then(|| grid.occupied().map(|(c, _)| (c, pruned.residual.get(c))).collect());
+        Some(Component { cells: grid.to_map(), residual })
     }
 
     fn grow(&mut self, id: usize, cells: &mut Grid) {
@@ -609,16 +637,6 @@ impl<'a> Builder<'a> {
         }
         agrees(cells, self.nodes, q, k, &pred).then_some(k)
     }
-
-    /// Leave-one-out residual test ([`prune`]); the removed nodes become free again. Returns
-    /// the number of nodes kept.
-    fn verify(&mut self, cells: &mut Grid) -> usize {
-        let pruned = prune(cells, self.nodes, self.opts.residual);
-        for &(_, k) in &pruned.removed {
-            self.owner[k] = None;
-        }
-        pruned.kept
-    }
 }
 
 /// What [`prune`] removed, and the residual of every node it kept.
@@ -629,6 +647,9 @@ pub(crate) struct Pruned {
     pub kept: usize,
     /// [`loo_residual`] of each kept cell against the kept cells.
     pub residual: Dense<f64>,
+    /// Whether the last round found nothing to remove, so that pruning the kept cells again
+    /// would keep them all with these residuals.
+    pub settled: bool,
 }
 
 /// Leave-one-out residual test: a node whose position disagrees with the fit of its
@@ -647,6 +668,7 @@ pub(crate) fn prune(cells: &mut Grid, nodes: &[Node], tol: f64) -> Pruned {
         kept += 1;
     }
     let mut removed = Vec::new();
+    let mut settled = false;
     for _ in 0..8 {
         let worst: Vec<Cell> = cells
             .occupied()
@@ -663,6 +685,7 @@ pub(crate) fn prune(cells: &mut Grid, nodes: &[Node], tol: f64) -> Pruned {
             })
             .collect();
         if worst.is_empty() {
+            settled = true;
             break;
         }
         stale.clear();
@@ -686,7 +709,7 @@ pub(crate) fn prune(cells: &mut Grid, nodes: &[Node], tol: f64) -> Pruned {
             }
         }
     }
-    Pruned { removed, kept, residual }
+    Pruned { removed, kept, residual, settled }
 }
 
 /// The residual of node `k` at `c` against the fit of its neighbours, in units of the local
@@ -780,7 +803,7 @@ mod tests {
                     axes: None,
                     rectify: Matrix2::identity(),
                     size: None,
-                    parity: false,
+                    parity: None,
                 });
             }
         }

@@ -52,7 +52,7 @@ pub use output::{
     LeftOutReason, Rejection,
 };
 
-use lattice::{Builder, Cell, Component, Grid, Node, local_map, prune};
+use lattice::{Builder, Cell, Component, Grid, Node, line_direction, local_map, prune};
 use place::{CandidateView, Placement, SeenMark, inside, place, rotate, unrotate};
 
 /// How the matcher decides. Every tolerance is relative to the local feature spacing in the
@@ -177,7 +177,7 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                     axes: Some(c.edges),
                     rectify: Matrix2::identity(),
                     size: None,
-                    parity: true,
+                    parity: Some(c.edges.map(|e| line_direction(&e))),
                 });
                 push(DetectionRef { kind: DetectionKind::CheckerCorner, index }, n, left_out);
             }
@@ -190,7 +190,7 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                     rectify: rectifier(&d.ellipse),
                     size: Some([d.ellipse.semi_major, d.ellipse.semi_minor])
                         .filter(|s| s.iter().all(|v| v.is_finite() && *v > 0.0)),
-                    parity: false,
+                    parity: None,
                 });
                 push(DetectionRef { kind: DetectionKind::Dot, index }, n, left_out);
             }
@@ -207,7 +207,7 @@ fn nodes_of(det: &Detections, kind: PatternKind, left_out: &mut Vec<LeftOut>) ->
                             axes: Some([a1, a2]),
                             rectify: Matrix2::identity(),
                             size: Some([0.5 * a1.norm(), 0.5 * a2.norm()]),
-                            parity: false,
+                            parity: None,
                         }
                     })
                 } else {
@@ -646,6 +646,7 @@ fn identify_kind(
     let faces: Vec<(usize, &Face)> =
         target.faces().iter().enumerate().filter(|(_, f)| f.pattern().kind() == kind).collect();
     let mut builder = Builder::new(&nodes, opts);
+
     let mut comps = builder.build();
     // Largest first, then by smallest node index: a deterministic order.
     comps.sort_by_key(|c| (std::cmp::Reverse(c.cells.len()), c.cells.values().min().copied()));
@@ -709,6 +710,10 @@ fn identify_kind(
     let mut claimed: BTreeMap<FeatureId, usize> = BTreeMap::new();
     // Identified nodes per face grid cell (col, row), for the per-face residual test.
     let mut face_cells: BTreeMap<usize, BTreeMap<Cell, usize>> = BTreeMap::new();
+    // Per face, the residuals of its one candidate when the candidate's own residual test
+    // settled on exactly the cells the face keeps: the per-face test would refit the same
+    // neighbourhoods, only in rotated coordinates, and find what the candidate's found.
+    let mut settled: BTreeMap<usize, Option<BTreeMap<Cell, f64>>> = BTreeMap::new();
     let mut turns_of: BTreeMap<usize, (u8, usize, usize)> = BTreeMap::new();
     for (ci, comp) in comps.iter().enumerate() {
         let cellset: BTreeSet<Cell> = comp.cells.keys().copied().collect();
@@ -778,6 +783,19 @@ fn identify_kind(
             reject(Rejection::Overlap { nodes: comp.cells.len(), face: face.id() }, result);
             continue;
         }
+        let whole = ids.len() == comp.cells.len();
+        match settled.entry(p.face) {
+            std::collections::btree_map::Entry::Vacant(e) => {
+                e.insert(comp.residual.as_ref().filter(|_| whole).map(|r| {
+                    ids.iter()
+                        .map(|&(c, _, cell)| (cell, r.get(&c).copied().unwrap_or(f64::INFINITY)))
+                        .collect()
+                }));
+            }
+            std::collections::btree_map::Entry::Occupied(mut e) => {
+                e.insert(None);
+            }
+        }
         let fc = face_cells.entry(p.face).or_default();
         for &(_, k, (col, row)) in &ids {
             claimed.insert(
@@ -812,6 +830,7 @@ fn identify_kind(
                     }
                     None => {
                         fc.retain(|_, &mut v| v != k);
+                        settled.insert(p.face, None);
                         result.left_out.push(LeftOut {
                             detection: refs[k],
                             reason: LeftOutReason::CornerOrder,
@@ -824,14 +843,21 @@ fn identify_kind(
     // Per-face test of every final identity, then the output.
     for (fi, cells) in face_cells {
         let face = &target.faces()[fi];
-        let mut grid = Grid::from_map(&cells);
-        let pruned = prune(&mut grid, &nodes, opts.residual);
-        for &(_, k) in &pruned.removed {
-            result
-                .left_out
-                .push(LeftOut { detection: refs[k], reason: LeftOutReason::FitResidual });
-        }
-        let cells = grid.to_map();
+        let (cells, residuals) = match settled.remove(&fi).flatten() {
+            Some(r) => (cells, r),
+            None => {
+                let mut grid = Grid::from_map(&cells);
+                let pruned = prune(&mut grid, &nodes, opts.residual);
+                for &(_, k) in &pruned.removed {
+                    result
+                        .left_out
+                        .push(LeftOut { detection: refs[k], reason: LeftOutReason::FitResidual });
+                }
+                let cells = grid.to_map();
+                let r = cells.keys().map(|&c| (c, pruned.residual.get(c))).collect();
+                (cells, r)
+            }
+        };
         let src: Vec<Point2<f64>> =
             cells.keys().map(|c| Point2::new(c.0 as f64, c.1 as f64)).collect();
         let dst: Vec<Point2<f64>> = cells.values().map(|&k| nodes[k].pos).collect();
@@ -863,8 +889,7 @@ fn identify_kind(
         });
         for (&(col, row), &k) in &cells {
             // The residual test's own figure for the nodes it kept.
-            let residual = pruned.residual.get((col, row));
-            let residual = residual.is_finite().then_some(residual);
+            let residual = residuals.get(&(col, row)).copied().filter(|r| r.is_finite());
             let (row, col) = (row as u32, col as u32);
             let corners: Vec<(u8, Point2<f64>)> = if on_nodes {
                 let Some(&s) = starts.get(&k) else { continue };
