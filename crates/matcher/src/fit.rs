@@ -15,27 +15,24 @@ use nalgebra::{Matrix3, Point2};
 /// origin, root-mean-square distance from it `sqrt(2)`. Hartley scales the mean distance; the
 /// root mean square is the common-practice variant that needs no square root per point.
 fn normaliser(pts: &[Point2<f64>]) -> Option<Matrix3<f64>> {
-    let n = pts.len() as f64;
-    if pts.is_empty() {
-        return None;
-    }
-    let (mut cx, mut cy) = (0.0, 0.0);
+    let first = pts.first()?;
+    // One pass of first and second moments about the first point, which keeps the variance
+    // free of cancellation however far the points lie from the origin.
+    let (mut sx, mut sy, mut sq) = (0.0, 0.0, 0.0);
     for p in pts {
-        cx += p.x;
-        cy += p.y;
-    }
-    cx /= n;
-    cy /= n;
-    let mut sq = 0.0;
-    for p in pts {
-        let (dx, dy) = (p.x - cx, p.y - cy);
+        let (dx, dy) = (p.x - first.x, p.y - first.y);
+        sx += dx;
+        sy += dy;
         sq += dx * dx + dy * dy;
     }
-    let mean_sq = sq / n;
+    let n = pts.len() as f64;
+    let (mx, my) = (sx / n, sy / n);
+    let mean_sq = sq / n - (mx * mx + my * my);
     if !(mean_sq.is_finite() && mean_sq > 1e-24) {
         return None;
     }
     let s = (2.0 / mean_sq).sqrt();
+    let (cx, cy) = (first.x + mx, first.y + my);
     Some(Matrix3::new(s, 0.0, -s * cx, 0.0, s, -s * cy, 0.0, 0.0, 1.0))
 }
 

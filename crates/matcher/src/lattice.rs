@@ -67,12 +67,14 @@ pub(crate) fn parity_flipped(a: &Node, b: &Node) -> Option<bool> {
 }
 
 /// A grown face candidate.
-#[derive(Clone, Debug, Default)]
+#[derive(Clone, Debug)]
 pub(crate) struct Component {
     /// Node index of each lattice cell.
-    pub cells: BTreeMap<Cell, usize>,
+    pub cells: Grid,
+    /// Number of cells.
+    pub len: usize,
     /// The residual test's figure for every cell, when the test settled on these cells.
-    pub residual: Option<BTreeMap<Cell, f64>>,
+    pub residual: Option<Dense<f64>>,
 }
 
 /// Read access to a lattice's cells, so that the hot fits can run on a dense [`Grid`] while
@@ -136,33 +138,33 @@ impl<T: Copy> Dense<T> {
         }
     }
 
-    /// Widens the rectangle to hold `c`, with a margin so that growth reallocates rarely.
+    /// A rectangle from `lo` to `hi` (inclusive) already allocated, for a lattice whose extent
+    /// is known.
+    pub fn spanning(lo: Cell, hi: Cell, fill: T) -> Dense<T> {
+        let (w, h) = ((hi.0 - lo.0 + 1).max(0), (hi.1 - lo.1 + 1).max(0));
+        Dense { lo, w, h, fill, v: vec![fill; (w * h) as usize] }
+    }
+
+    /// Widens the rectangle to hold `c`, with a margin of half its size (at least 8) so that
+    /// growth reallocates a logarithmic number of times.
     fn widen(&mut self, c: Cell) {
-        const MARGIN: i32 = 8;
+        let margin = 8.max(self.w.max(self.h) / 2);
         let (lo, hi) = if self.v.is_empty() {
-            ((c.0 - MARGIN, c.1 - MARGIN), (c.0 + MARGIN, c.1 + MARGIN))
+            ((c.0 - margin, c.1 - margin), (c.0 + margin, c.1 + margin))
         } else {
             let hi = (self.lo.0 + self.w - 1, self.lo.1 + self.h - 1);
-            let lo0 = if c.0 < self.lo.0 { c.0 - MARGIN } else { self.lo.0 };
-            let lo1 = if c.1 < self.lo.1 { c.1 - MARGIN } else { self.lo.1 };
-            let hi0 = if c.0 > hi.0 { c.0 + MARGIN } else { hi.0 };
-            let hi1 = if c.1 > hi.1 { c.1 + MARGIN } else { hi.1 };
+            let lo0 = if c.0 < self.lo.0 { c.0 - margin } else { self.lo.0 };
+            let lo1 = if c.1 < self.lo.1 { c.1 - margin } else { self.lo.1 };
+            let hi0 = if c.0 > hi.0 { c.0 + margin } else { hi.0 };
+            let hi1 = if c.1 > hi.1 { c.1 + margin } else { hi.1 };
             ((lo0, lo1), (hi0, hi1))
         };
-        let mut next = Dense {
-            lo,
-            w: hi.0 - lo.0 + 1,
-            h: hi.1 - lo.1 + 1,
-            fill: self.fill,
-            v: vec![self.fill; ((hi.0 - lo.0 + 1) * (hi.1 - lo.1 + 1)) as usize],
-        };
-        for i in 0..self.w {
-            for j in 0..self.h {
-                let c = (self.lo.0 + i, self.lo.1 + j);
-                if let Some(k) = next.index(c) {
-                    next.v[k] = self.v[(i * self.h + j) as usize];
-                }
-            }
+        let mut next = Dense::spanning(lo, hi, self.fill);
+        // Each old column `i` is one contiguous run in the new array.
+        let (h, dj) = (self.h as usize, (self.lo.1 - lo.1) as usize);
+        for i in 0..self.w as usize {
+            let at = (i + (self.lo.0 - lo.0) as usize) * next.h as usize + dj;
+            next.v[at..at + h].copy_from_slice(&self.v[i * h..(i + 1) * h]);
         }
         *self = next;
     }
@@ -172,6 +174,7 @@ impl<T: Copy> Dense<T> {
 pub(crate) type Grid = Dense<Option<usize>>;
 
 impl Grid {
+    #[cfg(test)]
     pub fn from_map(cells: &BTreeMap<Cell, usize>) -> Grid {
         let mut g = Grid::new(None);
         for (&c, &k) in cells {
@@ -189,6 +192,7 @@ impl Grid {
         })
     }
 
+    #[cfg(test)]
     pub fn to_map(&self) -> BTreeMap<Cell, usize> {
         self.occupied().collect()
     }
@@ -249,26 +253,25 @@ impl NodeIndex {
             return Vec::new();
         }
         let q = [p.x, p.y];
-        let found: Vec<usize> = if limit.is_finite() {
-            tree.within_unsorted_exclusive::<SquaredEuclidean>(&q, limit * limit, true)
+        // One more than asked: when it lies strictly farther than the n-th, the n nearest are
+        // decided; a tie at the boundary takes every node at that distance.
+        let more = NonZero::new((k.get() + 1).min(self.pos.len())).unwrap_or(k);
+        let nn = tree.nearest_n_within_exclusive::<SquaredEuclidean>(
+            &q,
+            limit * limit,
+            more,
+            true,
+            true,
+        );
+        let decided = nn.len() <= k.get() || nn[k.get() - 1].distance < nn[k.get()].distance;
+        let found: Vec<usize> = if decided {
+            nn.into_iter().map(|nn| nn.item as usize).collect()
+        } else {
+            let radius2 = nn[k.get() - 1].distance;
+            tree.within_unsorted_exclusive::<SquaredEuclidean>(&q, radius2, true)
                 .into_iter()
                 .map(|nn| nn.item as usize)
                 .collect()
-        } else {
-            // One more than asked: when it lies strictly farther than the n-th, the n nearest
-            // are decided; a tie at the boundary takes every node at that distance.
-            let more = NonZero::new((k.get() + 1).min(self.pos.len())).unwrap_or(k);
-            let nn = tree.nearest_n::<SquaredEuclidean>(&q, more);
-            let decided = nn.len() <= k.get() || nn[k.get() - 1].distance < nn[k.get()].distance;
-            if decided {
-                nn.into_iter().map(|nn| nn.item as usize).collect()
-            } else {
-                let radius2 = nn[k.get() - 1].distance;
-                tree.within_unsorted_exclusive::<SquaredEuclidean>(&q, radius2, true)
-                    .into_iter()
-                    .map(|nn| nn.item as usize)
-                    .collect()
-            }
         };
         let mut out: Vec<(f64, usize)> = found
             .into_iter()
@@ -292,13 +295,27 @@ pub(crate) fn local_map<C: Cells + ?Sized>(
     at: Cell,
     radius: i32,
 ) -> Option<PlaneMap> {
-    // At most 48 neighbours (radius 3); fixed buffers keep this allocation-free, bit masks
-    // count the distinct rows and columns.
-    let mut src = [Point2::origin(); 48];
-    let mut dst = [Point2::origin(); 48];
+    if radius <= 2 {
+        local_map_in::<C, 24>(cells, nodes, at, radius)
+    } else {
+        local_map_in::<C, 48>(cells, nodes, at, 3)
+    }
+}
+
+/// [`local_map`] with buffers for `N` neighbours: fixed buffers keep it allocation-free, and
+/// sized to the radius they cost little to set up.
+fn local_map_in<C: Cells + ?Sized, const N: usize>(
+    cells: &C,
+    nodes: &[Node],
+    at: Cell,
+    radius: i32,
+) -> Option<PlaneMap> {
+    let mut src = [Point2::origin(); N];
+    let mut dst = [Point2::origin(); N];
     let mut n = 0;
+    // Bit masks count the distinct rows and columns.
     let (mut is, mut js) = (0u32, 0u32);
-    cells.around(at, radius.min(3), |di, dj, k| {
+    cells.around(at, radius, |di, dj, k| {
         src[n] = Point2::new((at.0 + di) as f64, (at.1 + dj) as f64);
         dst[n] = nodes[k].pos;
         n += 1;
@@ -543,10 +560,8 @@ impl<'a> Builder<'a> {
             }
             return None;
         }
-        let residual = pruned
-            .settled
-            .then(|| grid.occupied().map(|(c, _)| (c, pruned.residual.get(c))).collect());
-        Some(Component { cells: grid.to_map(), residual })
+        let residual = pruned.settled.then_some(pruned.residual);
+        Some(Component { cells: grid, len: pruned.kept, residual })
     }
 
     fn grow(&mut self, id: usize, cells: &mut Grid) {

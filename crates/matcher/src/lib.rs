@@ -52,7 +52,9 @@ pub use output::{
     LeftOutReason, Rejection,
 };
 
-use lattice::{Builder, Cell, Component, Grid, Node, line_direction, local_map, prune};
+use lattice::{
+    Builder, Cell, Cells, Component, Dense, Grid, Node, line_direction, local_map, prune,
+};
 use place::{CandidateView, Placement, SeenMark, inside, place, rotate, unrotate};
 
 /// How the matcher decides. Every tolerance is relative to the local feature spacing in the
@@ -232,7 +234,7 @@ fn seen_marks(
     inks: &[Ink],
     on_nodes: bool,
     comps: &[Component],
-    owner: &BTreeMap<usize, (usize, Cell)>,
+    owner: &[Option<(usize, Cell)>],
     builder: &Builder<'_>,
     nodes: &[Node],
     tol: f64,
@@ -245,7 +247,7 @@ fn seen_marks(
         }
         let mut tried = BTreeSet::new();
         for (_, k) in builder.index().nearest(&m.centre, 6) {
-            let Some(&(ci, cell)) = owner.get(&k) else { continue };
+            let Some((ci, cell)) = owner[k] else { continue };
             if !tried.insert(ci) || tried.len() > 2 {
                 continue;
             }
@@ -278,11 +280,11 @@ fn seen_marks(
             };
             if let Some(c) = seen {
                 let near_component = if on_nodes {
-                    comps[ci].cells.contains_key(&c)
+                    comps[ci].cells.at(c).is_some()
                 } else {
                     [(0, 0), (1, 0), (0, 1), (1, 1)]
                         .iter()
-                        .any(|d| comps[ci].cells.contains_key(&(c.0 + d.0, c.1 + d.1)))
+                        .any(|d| comps[ci].cells.at((c.0 + d.0, c.1 + d.1)).is_some())
                 };
                 if near_component {
                     out[ci].insert(SeenMark { cell: c, light: m.ink == Ink::Light });
@@ -349,7 +351,7 @@ fn mark_thresholds(scores: &[f64]) -> (f64, f64) {
 /// grids: the four gaps diagonal to the square). `radius` is the printed mark radius in lattice
 /// units; the probe ellipses follow the local homography, so tilted faces are read as well.
 fn probe_marks(
-    cells: &BTreeMap<Cell, usize>,
+    cells: &Grid,
     nodes: &[Node],
     kind: PatternKind,
     radius: f64,
@@ -358,13 +360,13 @@ fn probe_marks(
     let on_nodes = kind == PatternKind::SquareGrid;
     let mut targets: BTreeSet<Cell> = BTreeSet::new();
     if on_nodes {
-        targets.extend(cells.keys().copied());
+        targets.extend(cells.occupied().map(|(c, _)| c));
     } else {
-        for &(i, j) in cells.keys() {
+        for ((i, j), _) in cells.occupied() {
             for c in [(i - 1, j - 1), (i, j - 1), (i - 1, j), (i, j)] {
                 let corners = [(0, 0), (1, 0), (0, 1), (1, 1)]
                     .iter()
-                    .filter(|d| cells.contains_key(&(c.0 + d.0, c.1 + d.1)))
+                    .filter(|d| cells.at((c.0 + d.0, c.1 + d.1)).is_some())
                     .count();
                 if corners >= 2 {
                     targets.insert(c);
@@ -459,12 +461,12 @@ fn probe_marks(
 }
 
 /// Mean image vectors of a component's two lattice axes.
-fn mean_axes(cells: &BTreeMap<Cell, usize>, nodes: &[Node]) -> [Vector2<f64>; 2] {
+fn mean_axes(cells: &Grid, nodes: &[Node]) -> [Vector2<f64>; 2] {
     let mut out = [Vector2::zeros(); 2];
     for (a, d) in [(0, (1, 0)), (1, (0, 1))] {
         let mut n = 0.0;
-        for (&(i, j), &k) in cells {
-            if let Some(&l) = cells.get(&(i + d.0, j + d.1)) {
+        for ((i, j), k) in cells.occupied() {
+            if let Some(l) = cells.at((i + d.0, j + d.1)) {
                 out[a] += nodes[l].pos - nodes[k].pos;
                 n += 1.0;
             }
@@ -523,7 +525,7 @@ fn shape_deviation(detected: &[Point2<f64>; 4], predicted: &[Point2<f64>]) -> Op
 fn square_start(
     det: &Detections,
     index: usize,
-    cells: &BTreeMap<Cell, usize>,
+    cells: &Grid,
     nodes: &[Node],
     cell: Cell,
     turns: u8,
@@ -531,7 +533,7 @@ fn square_start(
     tol: f64,
 ) -> Option<usize> {
     let sq = det.squares.get(index)?;
-    cells.get(&cell)?;
+    cells.at(cell)?;
     let dirs = [(-1, -1), (1, -1), (1, 1), (-1, 1)].map(|d| unrotate(turns, d));
     if let Some(m) = local_map(cells, nodes, cell, 2) {
         let p = Point2::new(cell.0 as f64, cell.1 as f64);
@@ -649,11 +651,11 @@ fn identify_kind(
 
     let mut comps = builder.build();
     // Largest first, then by smallest node index: a deterministic order.
-    comps.sort_by_key(|c| (std::cmp::Reverse(c.cells.len()), c.cells.values().min().copied()));
-    let mut owner: BTreeMap<usize, (usize, Cell)> = BTreeMap::new();
+    comps.sort_by_key(|c| (std::cmp::Reverse(c.len), c.cells.occupied().map(|(_, k)| k).min()));
+    let mut owner: Vec<Option<(usize, Cell)>> = vec![None; nodes.len()];
     for (ci, c) in comps.iter().enumerate() {
-        for (&cell, &k) in &c.cells {
-            owner.insert(k, (ci, cell));
+        for (cell, k) in c.cells.occupied() {
+            owner[k] = Some((ci, cell));
         }
     }
     let inks: Vec<Ink> = match kind {
@@ -707,16 +709,16 @@ fn identify_kind(
         tolerated: opts.tolerated_conflicts,
         margin: opts.conflict_margin,
     };
-    let mut claimed: BTreeMap<FeatureId, usize> = BTreeMap::new();
-    // Identified nodes per face grid cell (col, row), for the per-face residual test.
-    let mut face_cells: BTreeMap<usize, BTreeMap<Cell, usize>> = BTreeMap::new();
+    // Face grid cells (col, row) taken by an earlier candidate, per face.
+    let mut claimed: BTreeMap<usize, Dense<bool>> = BTreeMap::new();
+    // Identified nodes per face grid cell, for the per-face residual test.
+    let mut face_cells: BTreeMap<usize, Grid> = BTreeMap::new();
     // Per face, the residuals of its one candidate when the candidate's own residual test
     // settled on exactly the cells the face keeps: the per-face test would refit the same
     // neighbourhoods, only in rotated coordinates, and find what the candidate's found.
-    let mut settled: BTreeMap<usize, Option<BTreeMap<Cell, f64>>> = BTreeMap::new();
+    let mut settled: BTreeMap<usize, Option<Dense<f64>>> = BTreeMap::new();
     let mut turns_of: BTreeMap<usize, (u8, usize, usize)> = BTreeMap::new();
     for (ci, comp) in comps.iter().enumerate() {
-        let cellset: BTreeSet<Cell> = comp.cells.keys().copied().collect();
         let (w, h) = (det.width, det.height);
         let in_image = |c: Cell| {
             let centre = if on_nodes {
@@ -733,7 +735,8 @@ fn identify_kind(
             inside(p, w, h, 0.25 * s.unwrap_or(f64::INFINITY))
         };
         let view = CandidateView {
-            cells: &cellset,
+            cells: &comp.cells,
+            len: comp.len,
             marks: &marks[ci],
             unsure: &unsure[ci],
             in_image: &in_image,
@@ -741,7 +744,7 @@ fn identify_kind(
         };
         let placed: Result<Placement, Rejection> = place(&faces, &view, single_codeless, &rule);
         let reject = |r: Rejection, result: &mut Identification| {
-            for &k in comp.cells.values() {
+            for (_, k) in comp.cells.occupied() {
                 result.left_out.push(LeftOut {
                     detection: refs[k],
                     reason: LeftOutReason::Candidate { rejection: r.clone() },
@@ -758,8 +761,8 @@ fn identify_kind(
         };
         let face = &target.faces()[p.face];
         let (rows, cols) = face.feature_grid();
-        let mut ids: Vec<(Cell, usize, (i32, i32))> = Vec::with_capacity(comp.cells.len());
-        for (&c, &k) in &comp.cells {
+        let mut ids: Vec<(Cell, usize, (i32, i32))> = Vec::with_capacity(comp.len);
+        for (c, k) in comp.cells.occupied() {
             let r = rotate(p.turns, c);
             let (col, row) = (r.0 + p.offset.0, r.1 + p.offset.1);
             if col < 0 || row < 0 || col >= cols as i32 || row >= rows as i32 {
@@ -771,38 +774,31 @@ fn identify_kind(
                 ids.push((c, k, (col, row)));
             }
         }
-        let overlap = ids.iter().any(|&(_, _, (col, row))| {
-            claimed.contains_key(&FeatureId {
-                face: face.id(),
-                row: row as u32,
-                col: col as u32,
-                corner: 0,
-            })
-        });
-        if overlap {
-            reject(Rejection::Overlap { nodes: comp.cells.len(), face: face.id() }, result);
+        let span = ((0, 0), (cols as i32 - 1, rows as i32 - 1));
+        let taken = claimed.entry(p.face).or_insert_with(|| Dense::spanning(span.0, span.1, false));
+        if ids.iter().any(|&(_, _, cell)| taken.get(cell)) {
+            reject(Rejection::Overlap { nodes: comp.len, face: face.id() }, result);
             continue;
         }
-        let whole = ids.len() == comp.cells.len();
+        let whole = ids.len() == comp.len;
         match settled.entry(p.face) {
             std::collections::btree_map::Entry::Vacant(e) => {
                 e.insert(comp.residual.as_ref().filter(|_| whole).map(|r| {
-                    ids.iter()
-                        .map(|&(c, _, cell)| (cell, r.get(&c).copied().unwrap_or(f64::INFINITY)))
-                        .collect()
+                    let mut by_cell = Dense::spanning(span.0, span.1, f64::INFINITY);
+                    for &(c, _, cell) in &ids {
+                        by_cell.set(cell, r.get(c));
+                    }
+                    by_cell
                 }));
             }
             std::collections::btree_map::Entry::Occupied(mut e) => {
                 e.insert(None);
             }
         }
-        let fc = face_cells.entry(p.face).or_default();
-        for &(_, k, (col, row)) in &ids {
-            claimed.insert(
-                FeatureId { face: face.id(), row: row as u32, col: col as u32, corner: 0 },
-                k,
-            );
-            fc.insert((col, row), k);
+        let fc = face_cells.entry(p.face).or_insert_with(|| Grid::spanning(span.0, span.1, None));
+        for &(_, k, cell) in &ids {
+            taken.set(cell, true);
+            fc.set(cell, Some(k));
         }
         let t = turns_of.entry(p.face).or_insert((p.turns, 0, 0));
         t.1 += p.matched;
@@ -810,7 +806,7 @@ fn identify_kind(
         // Square corners: remember each node's start corner now, while its candidate's lattice
         // is at hand.
         if on_nodes {
-            for &(c, k, _) in &ids {
+            for &(c, k, cell) in &ids {
                 let half = match face.pattern() {
                     PatternSpec::SquareGrid { side, pitch, .. } => 0.5 * side / pitch,
                     _ => 0.5,
@@ -829,7 +825,7 @@ fn identify_kind(
                         starts.insert(k, s);
                     }
                     None => {
-                        fc.retain(|_, &mut v| v != k);
+                        fc.set(cell, None);
                         settled.insert(p.face, None);
                         result.left_out.push(LeftOut {
                             detection: refs[k],
@@ -841,26 +837,26 @@ fn identify_kind(
         }
     }
     // Per-face test of every final identity, then the output.
-    for (fi, cells) in face_cells {
+    for (fi, mut grid) in face_cells {
         let face = &target.faces()[fi];
-        let (cells, residuals) = match settled.remove(&fi).flatten() {
-            Some(r) => (cells, r),
+        let residuals = match settled.remove(&fi).flatten() {
+            Some(r) => r,
             None => {
-                let mut grid = Grid::from_map(&cells);
                 let pruned = prune(&mut grid, &nodes, opts.residual);
                 for &(_, k) in &pruned.removed {
                     result
                         .left_out
                         .push(LeftOut { detection: refs[k], reason: LeftOutReason::FitResidual });
                 }
-                let cells = grid.to_map();
-                let r = cells.keys().map(|&c| (c, pruned.residual.get(c))).collect();
-                (cells, r)
+                pruned.residual
             }
         };
+        // In (row, col) order, the order of the output's feature ids.
+        let mut cells: Vec<(Cell, usize)> = grid.occupied().collect();
+        cells.sort_unstable_by_key(|&((col, row), _)| (row, col));
         let src: Vec<Point2<f64>> =
-            cells.keys().map(|c| Point2::new(c.0 as f64, c.1 as f64)).collect();
-        let dst: Vec<Point2<f64>> = cells.values().map(|&k| nodes[k].pos).collect();
+            cells.iter().map(|(c, _)| Point2::new(c.0 as f64, c.1 as f64)).collect();
+        let dst: Vec<Point2<f64>> = cells.iter().map(|&(_, k)| nodes[k].pos).collect();
         let (turns, matched, count) = turns_of.get(&fi).copied().unwrap_or((0, 0, 0));
         if let Some(h) = fit_homography(&src, &dst) {
             let n = src.len() as f64;
@@ -870,7 +866,7 @@ fn identify_kind(
             );
             if h.orientation_at(&mid) <= 0.0 {
                 let r = Rejection::Mirrored { nodes: cells.len(), face: face.id() };
-                for &k in cells.values() {
+                for &(_, k) in &cells {
                     result.left_out.push(LeftOut {
                         detection: refs[k],
                         reason: LeftOutReason::Candidate { rejection: r.clone() },
@@ -887,9 +883,9 @@ fn identify_kind(
             candidates: count,
             points: Vec::new(),
         });
-        for (&(col, row), &k) in &cells {
+        for &((col, row), k) in &cells {
             // The residual test's own figure for the nodes it kept.
-            let residual = residuals.get(&(col, row)).copied().filter(|r| r.is_finite());
+            let residual = Some(residuals.get((col, row))).filter(|r| r.is_finite());
             let (row, col) = (row as u32, col as u32);
             let corners: Vec<(u8, Point2<f64>)> = if on_nodes {
                 let Some(&s) = starts.get(&k) else { continue };
@@ -912,7 +908,7 @@ fn identify_kind(
         }
     }
     for (k, &r) in refs.iter().enumerate() {
-        if !owner.contains_key(&k) {
+        if owner[k].is_none() {
             result.left_out.push(LeftOut { detection: r, reason: LeftOutReason::NoLattice });
         }
     }

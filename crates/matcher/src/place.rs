@@ -30,7 +30,7 @@ use std::collections::{BTreeMap, BTreeSet};
 use facetcal_model::{DotLayout, Face, Ink, PatternSpec};
 use nalgebra::{Point2, Vector2};
 
-use crate::lattice::Cell;
+use crate::lattice::{Cell, Cells, Grid as Lattice};
 use crate::output::Rejection;
 
 /// A mark seen in a candidate: its cell in candidate coordinates (for checkers and dot grids
@@ -76,7 +76,9 @@ pub(crate) fn unrotate(k: u8, p: (i32, i32)) -> (i32, i32) {
 /// What the placement search needs to know about a candidate.
 pub(crate) struct CandidateView<'a> {
     /// The candidate's cells.
-    pub cells: &'a BTreeSet<Cell>,
+    pub cells: &'a Lattice,
+    /// Number of cells.
+    pub len: usize,
     /// Marks seen in it.
     pub marks: &'a BTreeSet<SeenMark>,
     /// Mark cells whose image was probed but read neither as marked nor as unmarked: a face
@@ -210,7 +212,7 @@ fn score(
         }
         let all_seen = bounding
             .iter()
-            .all(|&(x, y)| view.cells.contains(&unrotate(k, (x - off.0, y - off.1))));
+            .all(|&(x, y)| view.cells.at(unrotate(k, (x - off.0, y - off.1))).is_some());
         if !all_seen {
             continue;
         }
@@ -243,7 +245,7 @@ pub(crate) fn place(
     let hopeless = tolerated + margin;
     let reach = hopeless as i32 - 1;
     let (mut imin, mut imax, mut jmin, mut jmax) = (i32::MAX, i32::MIN, i32::MAX, i32::MIN);
-    for &(i, j) in view.cells {
+    for ((i, j), _) in view.cells.occupied() {
         imin = imin.min(i);
         imax = imax.max(i);
         jmin = jmin.min(j);
@@ -270,7 +272,8 @@ pub(crate) fn place(
                 continue;
             }
             let full = w == g.cols && h == g.rows;
-            let rotated: Vec<(i32, i32)> = view.cells.iter().map(|&c| rotate(k, c)).collect();
+            let rotated: Vec<(i32, i32)> =
+                view.cells.occupied().map(|(c, _)| rotate(k, c)).collect();
             for oy in (-ylo - reach)..=(g.rows - 1 - yhi + reach) {
                 for ox in (-xlo - reach)..=(g.cols - 1 - xhi + reach) {
                     let outside = rotated
@@ -297,7 +300,7 @@ pub(crate) fn place(
             }
         }
     }
-    let nodes = view.cells.len();
+    let nodes = view.len;
     if scored.is_empty() {
         return Err(Rejection::NoFit { nodes, best_conflicts: None });
     }
