@@ -55,6 +55,8 @@ fn inverse_similarity(t: &Matrix3<f64>) -> Matrix3<f64> {
 /// The Cholesky factor `L` of a symmetric positive definite 3 x 3 matrix (`A = L L^T`).
 struct Chol3 {
     l: [[f64; 3]; 3],
+    /// Reciprocals of the diagonal: substitution multiplies instead of dividing.
+    inv: [f64; 3],
 }
 
 impl Chol3 {
@@ -66,19 +68,21 @@ impl Chol3 {
         let l21 = (a[2][1] - l20 * l10) / l11;
         let l22 = (a[2][2] - l20 * l20 - l21 * l21).sqrt();
         // `sqrt` of a negative pivot is NaN, which fails these tests too.
-        (l00 > 0.0 && l11 > 0.0 && l22 > 0.0)
-            .then_some(Chol3 { l: [[l00, 0.0, 0.0], [l10, l11, 0.0], [l20, l21, l22]] })
+        (l00 > 0.0 && l11 > 0.0 && l22 > 0.0).then_some(Chol3 {
+            l: [[l00, 0.0, 0.0], [l10, l11, 0.0], [l20, l21, l22]],
+            inv: [1.0 / l00, 1.0 / l11, 1.0 / l22],
+        })
     }
 
     /// `A^-1 b` by forward and back substitution.
     fn solve(&self, b: [f64; 3]) -> [f64; 3] {
-        let l = &self.l;
-        let y0 = b[0] / l[0][0];
-        let y1 = (b[1] - l[1][0] * y0) / l[1][1];
-        let y2 = (b[2] - l[2][0] * y0 - l[2][1] * y1) / l[2][2];
-        let x2 = y2 / l[2][2];
-        let x1 = (y1 - l[2][1] * x2) / l[1][1];
-        let x0 = (y0 - l[1][0] * x1 - l[2][0] * x2) / l[0][0];
+        let (l, d) = (&self.l, &self.inv);
+        let y0 = b[0] * d[0];
+        let y1 = (b[1] - l[1][0] * y0) * d[1];
+        let y2 = (b[2] - l[2][0] * y0 - l[2][1] * y1) * d[2];
+        let x2 = y2 * d[2];
+        let x1 = (y1 - l[2][1] * x2) * d[1];
+        let x0 = (y0 - l[1][0] * x1 - l[2][0] * x2) * d[0];
         [x0, x1, x2]
     }
 }
@@ -123,36 +127,25 @@ pub fn fit_homography(src: &[Point2<f64>], dst: &[Point2<f64>]) -> Option<PlaneM
     // 2 x 64 products per point.
     let (sa, sd) = (ts[(0, 0)], td[(0, 0)]);
     let (ca, cb, cu, cv) = (ts[(0, 2)], ts[(1, 2)], td[(0, 2)], td[(1, 2)]);
-    let mut m = [0.0f64; 23];
+    // acc[g][f]: the sums of g f over the points, g in (1, u, v, u^2 + v^2) and f in
+    // (x^2, xy, y^2, x, y, 1); one product table per point, which vectorises.
+    let mut acc = [[0.0f64; 6]; 4];
     for (a, b) in src.iter().zip(dst) {
         let (x, y) = (sa * a.x + ca, sa * a.y + cb);
         let (u, v) = (sd * b.x + cu, sd * b.y + cv);
-        let (xx, xy, yy) = (x * x, x * y, y * y);
-        let w = u * u + v * v;
-        m[0] += xx;
-        m[1] += xy;
-        m[2] += yy;
-        m[3] += x;
-        m[4] += y;
-        m[5] += 1.0;
-        m[6] += u * xx;
-        m[7] += u * xy;
-        m[8] += u * yy;
-        m[9] += u * x;
-        m[10] += u * y;
-        m[11] += v * xx;
-        m[12] += v * xy;
-        m[13] += v * yy;
-        m[14] += v * x;
-        m[15] += v * y;
-        m[16] += w * xx;
-        m[17] += w * xy;
-        m[18] += w * yy;
-        m[19] += u;
-        m[20] += v;
-        m[21] += w * x;
-        m[22] += w * y;
+        let f = [x * x, x * y, y * y, x, y, 1.0];
+        let g = [1.0, u, v, u * u + v * v];
+        for (row, gk) in acc.iter_mut().zip(g) {
+            for (s, fk) in row.iter_mut().zip(f) {
+                *s += gk * fk;
+            }
+        }
     }
+    let [p, au, av, aw] = acc;
+    let m = [
+        p[0], p[1], p[2], p[3], p[4], p[5], au[0], au[1], au[2], au[3], au[4], av[0], av[1], av[2],
+        av[3], av[4], aw[0], aw[1], aw[2], au[5], av[5], aw[3], aw[4],
+    ];
     // A non-finite coordinate leaves its sums non-finite.
     if m.iter().any(|v| !v.is_finite()) {
         return None;
