@@ -797,6 +797,38 @@ mod tests {
     }
 
     #[test]
+    fn dense_arrays_keep_every_cell_as_they_widen() {
+        // Cells set far apart in every direction force widening on each side; the array must
+        // read back exactly what an ordered map holds, and iterate in the same order.
+        let mut seed = 99u64;
+        let mut next = |m: i32| {
+            seed = seed.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            ((seed >> 33) % (2 * m as u64 + 1)) as i32 - m
+        };
+        let mut grid = Grid::new(None);
+        let mut want = BTreeMap::new();
+        for k in 0..600 {
+            let c = (
+                next(40) + if k % 3 == 0 { 90 } else { 0 },
+                next(25) - if k % 5 == 0 { 70 } else { 0 },
+            );
+            grid.set(c, Some(k));
+            want.insert(c, k);
+        }
+        assert_eq!(grid.to_map(), want);
+        assert!(grid.occupied().map(|(c, _)| c).eq(want.keys().copied()));
+        for i in -60..140 {
+            for j in -110..40 {
+                assert_eq!(grid.at((i, j)), want.get(&(i, j)).copied(), "at {i} {j}");
+            }
+        }
+        let mut sized: Dense<f64> = Dense::spanning((2, 3), (4, 5), 0.5);
+        sized.set((4, 5), 1.0);
+        sized.set((-3, 9), 2.0);
+        assert_eq!((sized.get((4, 5)), sized.get((-3, 9)), sized.get((2, 3))), (1.0, 2.0, 0.5));
+    }
+
+    #[test]
     fn pruning_refits_as_if_every_node_were_refit_every_round() {
         // A 12 x 10 lattice under a projective map with a few displaced nodes, some of them
         // neighbours, so that removals change the residuals of nodes around them.
