@@ -648,7 +648,6 @@ fn identify_kind(
     let faces: Vec<(usize, &Face)> =
         target.faces().iter().enumerate().filter(|(_, f)| f.pattern().kind() == kind).collect();
     let mut builder = Builder::new(&nodes, opts);
-
     let mut comps = builder.build();
     // Largest first, then by smallest node index: a deterministic order.
     comps.sort_by_key(|c| (std::cmp::Reverse(c.len), c.cells.occupied().map(|(_, k)| k).min()));
