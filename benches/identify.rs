@@ -6,6 +6,12 @@
 //! - `identify/checker-1008-clutter`: the same with 10 % missing corners and 100 clutter
 //!   detections, which costs failed predictions and extra seeds.
 //! - `identify/dots-1014`: a 26 x 39 dot grid (dots carry ellipses, growth checks sizes).
+//!
+//! Instruction counts, which do not drift with the machine as times do: with
+//! `FACETCAL_IDENTIFY_CALLS=N` (and optionally `FACETCAL_IDENTIFY_SCENE=NAME`) the bench skips
+//! criterion and calls `identify` N times per scene, so that under
+//! `valgrind --tool=cachegrind --cache-sim=no` the count with N = 20 less the count with N = 0,
+//! over 20, is the cost of one call (DEVELOPERS.md quotes it).
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use facetcal_matcher::synthetic::{Scene, synthesize};
@@ -32,12 +38,18 @@ fn bench(c: &mut Criterion) {
         "[[2,3],[5,20],[11,7],[17,30],[24,12],[20,33],[8,25]]",
     );
     let opts = MatchOptions::default();
+    let calls: Option<usize> =
+        std::env::var("FACETCAL_IDENTIFY_CALLS").ok().and_then(|v| v.parse().ok());
+    let only = std::env::var("FACETCAL_IDENTIFY_SCENE").ok();
     let mut group = c.benchmark_group("identify");
     for (name, target, scene) in [
         ("checker-1008", &checker, Scene::default()),
         ("checker-1008-clutter", &checker, Scene { drop: 0.1, clutter: 100, ..Scene::default() }),
         ("dots-1014", &dots, Scene::default()),
     ] {
+        if only.as_deref().is_some_and(|o| o != name) {
+            continue;
+        }
         let (lo, hi) = target.bounds();
         let centre = (lo.coords + hi.coords) * 0.5;
         let rot = nalgebra::UnitQuaternion::from_scaled_axis(Vector3::new(0.3, -0.2, 0.1));
@@ -51,6 +63,17 @@ fn bench(c: &mut Criterion) {
             id.point_count(),
             synth.true_count()
         );
+        if let Some(calls) = calls {
+            for _ in 0..calls {
+                std::hint::black_box(identify(
+                    std::hint::black_box(&synth.detections),
+                    target,
+                    &opts,
+                ))
+                .ok();
+            }
+            continue;
+        }
         group.bench_function(name, |b| {
             b.iter(|| identify(std::hint::black_box(&synth.detections), target, &opts))
         });
