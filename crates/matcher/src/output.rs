@@ -43,8 +43,9 @@ pub struct Correspondence {
     pub target: [f64; 3],
     /// The detected image point, pixels.
     pub image: [f64; 2],
-    /// Distance of the image point from the prediction of its identified neighbours (a local
-    /// homography in face coordinates), in units of the local feature spacing; `None` when the
+    /// Distance of the image point from the prediction of its identified neighbours (the
+    /// least-squares quadratic of its whole 5 x 5 neighbourhood, or a local homography where
+    /// part of it is missing), in units of the local feature spacing; `None` when the
     /// neighbours are too few to predict it.
     pub residual: Option<f64>,
     /// The detection it came from.
