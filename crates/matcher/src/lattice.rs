@@ -779,14 +779,14 @@ fn stencil_prediction<C: Cells + ?Sized>(
     let w = stencil_weights();
     let mut pts = [Point2::origin(); 24];
     let mut n = 0;
-    cells.around(at, 2, |_, _, k| {
-        if n < 24 {
-            pts[n] = nodes[k].pos;
+    // Stops at the first missing cell: with holes most windows are incomplete.
+    for di in -2..=2 {
+        for dj in -2..=2 {
+            if (di, dj) != (0, 0) {
+                pts[n] = nodes[cells.at((at.0 + di, at.1 + dj))?].pos;
+                n += 1;
+            }
         }
-        n += 1;
-    });
-    if n != 24 {
-        return None;
     }
     let sum = |r: usize| {
         pts.iter().zip(&w[r]).fold(Vector2::zeros(), |acc, (p, &wk)| acc + p.coords * wk)
