@@ -128,7 +128,7 @@ pub fn fit_homography(src: &[Point2<f64>], dst: &[Point2<f64>]) -> Option<PlaneM
     let (sa, sd) = (ts[(0, 0)], td[(0, 0)]);
     let (ca, cb, cu, cv) = (ts[(0, 2)], ts[(1, 2)], td[(0, 2)], td[(1, 2)]);
     // acc[g][f]: the sums of g f over the points, g in (1, u, v, u^2 + v^2) and f in
-    // (x^2, xy, y^2, x, y, 1); one product table per point, which vectorises.
+    // (x^2, xy, y^2, x, y, 1): one product table per point.
     let mut acc = [[0.0f64; 6]; 4];
     for (a, b) in src.iter().zip(dst) {
         let (x, y) = (sa * a.x + ca, sa * a.y + cb);
@@ -141,33 +141,28 @@ pub fn fit_homography(src: &[Point2<f64>], dst: &[Point2<f64>]) -> Option<PlaneM
             }
         }
     }
-    let [p, au, av, aw] = acc;
-    let m = [
-        p[0], p[1], p[2], p[3], p[4], p[5], au[0], au[1], au[2], au[3], au[4], av[0], av[1], av[2],
-        av[3], av[4], aw[0], aw[1], aw[2], au[5], av[5], aw[3], aw[4],
-    ];
     // A non-finite coordinate leaves its sums non-finite.
-    if m.iter().any(|v| !v.is_finite()) {
+    if acc.iter().flatten().any(|v| !v.is_finite()) {
         return None;
     }
+    let [p, au, av, aw] = acc;
     // The normal matrix is [[P, 0, -U], [0, P, -V], [-U^T, -V^T, W]] with P = sum p p^T,
     // U = sum u p q^T, V = sum v p q^T, W = sum (u^2 + v^2) q q^T. Its Cholesky factor is
     // diag(L_P, L_P) over the Schur complement's factor L_S, S = W - U^T P^-1 U - V^T P^-1 V,
     // so one 3 x 3 and one 2 x 2 factorisation give the same solution and the same pivots as
     // the full 8 x 8 one, at a fraction of the cost.
-    let lp = Chol3::new([[m[0], m[1], m[3]], [m[1], m[2], m[4]], [m[3], m[4], m[5]]])?;
+    let lp = Chol3::new([[p[0], p[1], p[3]], [p[1], p[2], p[4]], [p[3], p[4], p[5]]])?;
     // Columns of U and V (rows x, y, 1 of p; columns x, y of q).
-    let u = [[m[6], m[7], m[9]], [m[7], m[8], m[10]]];
-    let v = [[m[11], m[12], m[14]], [m[12], m[13], m[15]]];
-    let (b1, b2) = ([m[9], m[10], m[19]], [m[14], m[15], m[20]]);
-    let b3 = [-m[21], -m[22]];
+    let u = [[au[0], au[1], au[3]], [au[1], au[2], au[4]]];
+    let v = [[av[0], av[1], av[3]], [av[1], av[2], av[4]]];
+    let (b1, b2) = ([au[3], au[4], au[5]], [av[3], av[4], av[5]]);
+    let b3 = [-aw[3], -aw[4]];
     let zu = [lp.solve(u[0]), lp.solve(u[1])];
     let zv = [lp.solve(v[0]), lp.solve(v[1])];
     let (z1, z2) = (lp.solve(b1), lp.solve(b2));
     let dot = |a: &[f64; 3], b: &[f64; 3]| a[0] * b[0] + a[1] * b[1] + a[2] * b[2];
     let s = |r: usize, c: usize| dot(&u[r], &zu[c]) + dot(&v[r], &zv[c]);
-    let w = [[m[16], m[17]], [m[17], m[18]]];
-    let (s00, s01, s11) = (w[0][0] - s(0, 0), w[0][1] - s(0, 1), w[1][1] - s(1, 1));
+    let (s00, s01, s11) = (aw[0] - s(0, 0), aw[1] - s(0, 1), aw[2] - s(1, 1));
     let r = [b3[0] + dot(&u[0], &z1) + dot(&v[0], &z2), b3[1] + dot(&u[1], &z1) + dot(&v[1], &z2)];
     // 2 x 2 Cholesky of S.
     let l00 = s00.sqrt();
