@@ -37,6 +37,7 @@ mod lattice;
 mod output;
 mod place;
 pub mod synthetic;
+mod window;
 
 use std::collections::{BTreeMap, BTreeSet};
 
