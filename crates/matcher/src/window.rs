@@ -51,6 +51,60 @@ const fn monomials(o: (i32, i32)) -> [f64; 6] {
     [1.0, i, j, i * i, i * j, j * j]
 }
 
+/// Entries of a packed lower triangle of a symmetric 6 x 6 matrix, row by row.
+const PACKED: usize = 21;
+
+/// The index of entry `(r, c)`, `c <= r`, in a packed lower triangle.
+const fn packed(r: usize, c: usize) -> usize {
+    r * (r + 1) / 2 + c
+}
+
+/// Per slot, its monomials and their outer product `m m^T` (packed): one cell's terms of the
+/// normal matrix.
+const MONOMIALS: [[f64; 6]; 24] = {
+    let mut out = [[0.0; 6]; 24];
+    let mut k = 0;
+    while k < 24 {
+        out[k] = monomials(OFFSETS[k]);
+        k += 1;
+    }
+    out
+};
+
+const OUTER: [[f64; PACKED]; 24] = {
+    let mut out = [[0.0; PACKED]; 24];
+    let mut k = 0;
+    while k < 24 {
+        let m = MONOMIALS[k];
+        let mut r = 0;
+        while r < 6 {
+            let mut c = 0;
+            while c <= r {
+                out[k][packed(r, c)] = m[r] * m[c];
+                c += 1;
+            }
+            r += 1;
+        }
+        k += 1;
+    }
+    out
+};
+
+/// The whole window's normal matrix (packed).
+const FULL_NORMAL: [f64; PACKED] = {
+    let mut out = [0.0; PACKED];
+    let mut k = 0;
+    while k < 24 {
+        let mut e = 0;
+        while e < PACKED {
+            out[e] += OUTER[k][e];
+            e += 1;
+        }
+        k += 1;
+    }
+    out
+};
+
 /// The largest variance of the predicted centre, in units of one cell's variance, for which a
 /// fit is used. Windows near degenerate for a quadratic (two rows, a cross) exceed it and are
 /// left to the caller's other fits. A whole window gives 0.18, a face's edge (three rows) 0.42,
@@ -81,7 +135,7 @@ pub(crate) fn fit(mask: Mask, pts: &[Point2<f64>; 24]) -> Option<WindowFit> {
     let mut rhs = [Vector2::zeros(); 6];
     for k in bits(mask) {
         let d = pts[k] - origin;
-        for (r, m) in rhs.iter_mut().zip(monomials(OFFSETS[k])) {
+        for (r, &m) in rhs.iter_mut().zip(&MONOMIALS[k]) {
             *r += d * m;
         }
     }
@@ -128,37 +182,24 @@ fn bits(mut mask: Mask) -> impl Iterator<Item = usize> {
     })
 }
 
-/// The normal matrix of the whole window, `sum m m^T` over its 24 offsets.
-fn full_normal() -> &'static [[f64; 6]; 6] {
-    static NORMAL: OnceLock<[[f64; 6]; 6]> = OnceLock::new();
-    NORMAL.get_or_init(|| {
-        let mut a = [[0.0; 6]; 6];
-        for &o in &OFFSETS {
-            add_outer(&mut a, &monomials(o), 1.0);
-        }
-        a
-    })
-}
-
-/// `a += s m m^T` on the lower triangle.
-fn add_outer(a: &mut [[f64; 6]; 6], m: &[f64; 6], s: f64) {
-    for r in 0..6 {
-        for c in 0..=r {
-            a[r][c] += s * m[r] * m[c];
-        }
-    }
-}
-
 /// The Cholesky factor (lower triangle) of the normal matrix of the cells of `mask`, or `None`
-/// when that matrix is singular or nearly so. Its entries are small integers, so taking the
-/// missing cells off the whole window's is exact.
+/// when that matrix is singular or nearly so. Its entries are small integers, so summing the
+/// present cells' terms, or taking the missing cells' off the whole window's, is exact.
 fn factor(mask: Mask) -> Option<[[f64; 6]; 6]> {
-    let mut a = *full_normal();
-    for k in bits(!mask & FULL) {
-        add_outer(&mut a, &monomials(OFFSETS[k]), -1.0);
+    let mut n = [0.0; PACKED];
+    if mask.count_ones() >= 12 {
+        n = FULL_NORMAL;
+        for k in bits(!mask & FULL) {
+            n.iter_mut().zip(&OUTER[k]).for_each(|(a, b)| *a -= b);
+        }
+    } else {
+        for k in bits(mask) {
+            n.iter_mut().zip(&OUTER[k]).for_each(|(a, b)| *a += b);
+        }
     }
+    let mut a = [[0.0; 6]; 6];
     for c in 0..6 {
-        let mut d = a[c][c];
+        let mut d = n[packed(c, c)];
         for k in 0..c {
             d -= a[c][k] * a[c][k];
         }
@@ -169,7 +210,7 @@ fn factor(mask: Mask) -> Option<[[f64; 6]; 6]> {
         let d = d.sqrt();
         a[c][c] = d;
         for r in c + 1..6 {
-            let mut s = a[r][c];
+            let mut s = n[packed(r, c)];
             for k in 0..c {
                 s -= a[r][k] * a[c][k];
             }
