@@ -10,8 +10,8 @@
 //! front-facing face.
 //!
 //! Growth predicts each next node from a local fit of the nodes within two lattice steps
-//! (a homography where the neighbourhood spans three rows and three columns, an affine map
-//! otherwise), accepts the nearest detection inside a gate proportional to the local spacing,
+//! (the window's quadratic where its cells determine it, see `window`; else a homography where
+//! the neighbourhood spans three rows and three columns, an affine map otherwise), accepts the nearest detection inside a gate proportional to the local spacing,
 //! and repeats outward, so that strong lens distortion, which is smooth but far from
 //! projective over a whole face, does not stop it.
 
@@ -340,7 +340,12 @@ struct Prediction {
     spacing: f64,
 }
 
+/// The prediction of cell `at` from its neighbours, by the first of the module's fits that
+/// their layout determines.
 fn predict<C: Cells + ?Sized>(cells: &C, nodes: &[Node], at: Cell) -> Option<Prediction> {
+    if let Some(p) = window_prediction(cells, nodes, at) {
+        return Some(p);
+    }
     let map = local_map(cells, nodes, at, 2).or_else(|| local_map(cells, nodes, at, 3));
     if let Some(m) = map {
         let p = Point2::new(at.0 as f64, at.1 as f64);
@@ -732,7 +737,7 @@ pub(crate) fn prune(cells: &mut Grid, nodes: &[Node], tol: f64) -> Pruned {
 /// where it determines the centre, else the local map), in units of the local spacing;
 /// `f64::INFINITY` when the neighbours cannot predict it.
 pub(crate) fn loo_residual<C: Cells + ?Sized>(cells: &C, nodes: &[Node], c: Cell, k: usize) -> f64 {
-    match window_prediction(cells, nodes, c).or_else(|| predict(cells, nodes, c)) {
+    match predict(cells, nodes, c) {
         Some(p) => (p.point - nodes[k].pos).norm() / p.spacing,
         None => f64::INFINITY,
     }

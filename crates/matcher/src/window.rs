@@ -3,13 +3,17 @@
 //!
 //! Each image coordinate is fitted by `b0 + b1 i + b2 j + b3 i^2 + b4 ij + b5 j^2` over the
 //! integer offsets `(i, j)` of the present cells. The design matrix depends on which cells are
-//! present and nothing else, so its normal matrix is the whole window's, a constant, minus the
-//! missing cells' terms; with every cell present the fit is one fixed table of weights. A
-//! quadratic follows lens distortion, which bends the lattice, better than a homography, and
-//! over two steps it differs from a view's perspective by far less than the residual test's
-//! tolerance (tested below).
+//! present (the window's mask) and nothing else, so the fit is a linear combination of the
+//! cells' positions with weights fixed by the mask: computed once per mask from the normal
+//! matrix (the whole window's, a constant, minus the missing cells' terms) and kept in a
+//! per-thread memo, a fit costs one weighted sum. A quadratic follows lens distortion, which
+//! bends the lattice, better than a homography, and over two steps, one-sided windows
+//! included, it differs from a view's perspective by a small fraction of the growth gate and
+//! of the residual test's tolerance (tested below).
 
-use std::sync::OnceLock;
+use std::cell::RefCell;
+use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hasher};
 
 use nalgebra::{Point2, Vector2};
 
@@ -118,57 +122,80 @@ pub(crate) struct WindowFit {
     pub d_j: Vector2<f64>,
 }
 
+/// Window masks whose weights are kept per thread; past this many the memo starts afresh, which
+/// bounds it to about 2.4 MB.
+const MEMO_CAP: usize = 4096;
+
+/// Weights per window mask: rows of the fit's pseudo-inverse that give the centre's value and
+/// its two derivatives (zero for absent cells), or `None` for a mask that does not determine
+/// the centre well enough.
+type Weights = Option<[[f64; 24]; 3]>;
+
+thread_local! {
+    // The weights depend on the mask alone, and a face's windows repeat a few hundred masks.
+    // A memo of a pure function: results are the same whatever it holds.
+    static MEMO: RefCell<HashMap<Mask, Weights, BuildHasherDefault<MaskHasher>>> =
+        RefCell::new(HashMap::default());
+}
+
+/// A multiplicative hash for the 24-bit masks (the default hasher costs more than the fit).
+#[derive(Default)]
+struct MaskHasher(u64);
+
+impl Hasher for MaskHasher {
+    fn finish(&self) -> u64 {
+        self.0
+    }
+
+    fn write(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.0 = (self.0.rotate_left(8) ^ b as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+        }
+    }
+
+    fn write_u32(&mut self, v: u32) {
+        self.0 = (v as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+    }
+}
+
 /// Fits the cells of `mask` (positions `pts`, indexed by slot; other slots are ignored), or
 /// `None` when they do not determine the centre well enough.
 pub(crate) fn fit(mask: Mask, pts: &[Point2<f64>; 24]) -> Option<WindowFit> {
     let mask = mask & FULL;
-    if mask == FULL {
-        return Some(apply(full_weights(), mask, pts));
-    }
+    MEMO.with_borrow_mut(|memo| {
+        if memo.len() >= MEMO_CAP && !memo.contains_key(&mask) {
+            memo.clear();
+        }
+        let w = memo.entry(mask).or_insert_with(|| weights(mask)).as_ref()?;
+        // Coordinates about the first present cell: small values keep the sums free of
+        // cancellation. Absent cells have zero weight.
+        let origin = pts[mask.trailing_zeros() as usize];
+        let sum = |r: usize| {
+            pts.iter().zip(&w[r]).fold(Vector2::zeros(), |a, (p, &c)| a + (p - origin) * c)
+        };
+        let f = WindowFit { point: origin + sum(0), d_i: sum(1), d_j: sum(2) };
+        let finite = f.point.iter().chain(f.d_i.iter()).chain(f.d_j.iter()).all(|v| v.is_finite());
+        finite.then_some(f)
+    })
+}
+
+/// The weights of a mask: with `N` the normal matrix of its cells, row `r` of `N^-1` dotted
+/// with each present cell's monomials.
+fn weights(mask: Mask) -> Weights {
     let l = factor(mask)?;
     if centre_variance(&l) > MAX_VARIANCE {
         return None;
     }
-    // Coordinates about the first present cell: the solution is linear in them, and small
-    // values keep the sums free of cancellation.
-    let origin = pts[mask.trailing_zeros() as usize];
-    let mut rhs = [Vector2::zeros(); 6];
-    for k in bits(mask) {
-        let d = pts[k] - origin;
-        for (r, &m) in rhs.iter_mut().zip(&MONOMIALS[k]) {
-            *r += d * m;
+    let mut w = [[0.0; 24]; 3];
+    for (r, row) in w.iter_mut().enumerate() {
+        let e: [Vector2<f64>; 6] =
+            std::array::from_fn(|c| Vector2::new((c == r) as u8 as f64, 0.0));
+        let inv = solve(&l, e);
+        for k in bits(mask) {
+            row[k] = inv.iter().zip(&MONOMIALS[k]).map(|(v, m)| v.x * m).sum();
         }
     }
-    let b = solve(&l, rhs);
-    let f = WindowFit { point: origin + b[0], d_i: b[1], d_j: b[2] };
-    let finite = f.point.iter().chain(f.d_i.iter()).chain(f.d_j.iter()).all(|v| v.is_finite());
-    finite.then_some(f)
-}
-
-/// The rows of the fit's pseudo-inverse that give the value and the two derivatives at the
-/// centre, for the whole window (computed once).
-fn full_weights() -> &'static [[f64; 24]; 3] {
-    static WEIGHTS: OnceLock<[[f64; 24]; 3]> = OnceLock::new();
-    WEIGHTS.get_or_init(|| {
-        let mut w = [[0.0; 24]; 3];
-        // The whole window determines every coefficient (variance 0.18 at the centre).
-        if let Some(l) = factor(FULL) {
-            for (k, &o) in OFFSETS.iter().enumerate() {
-                let b = solve(&l, monomials(o).map(|m| Vector2::new(m, 0.0)));
-                for r in 0..3 {
-                    w[r][k] = b[r].x;
-                }
-            }
-        }
-        w
-    })
-}
-
-fn apply(w: &[[f64; 24]; 3], mask: Mask, pts: &[Point2<f64>; 24]) -> WindowFit {
-    let origin = pts[mask.trailing_zeros() as usize];
-    let sum =
-        |r: usize| pts.iter().zip(&w[r]).fold(Vector2::zeros(), |a, (p, &c)| a + (p - origin) * c);
-    WindowFit { point: origin + sum(0), d_i: sum(1), d_j: sum(2) }
+    Some(w)
 }
 
 /// The set bits of a mask, lowest first.
@@ -374,5 +401,32 @@ mod tests {
         assert!((var(FULL) - 0.18).abs() < 0.005, "{}", var(FULL));
         assert!((var(mask_of(|i, _| i >= 0)) - 0.42).abs() < 0.005);
         assert!((var(mask_of(|i, j| i >= 0 && j >= 0)) - 4.14).abs() < 0.005);
+    }
+
+    /// The memo holds a pure function's values: a fit is the same from a fresh memo, a warm
+    /// one, and one that has just started afresh at its cap.
+    #[test]
+    fn fits_do_not_depend_on_the_memo() {
+        let quad = |i: f64, j: f64| Point2::new(500.0 + 20.0 * i + 0.3 * i * j, 400.0 + 19.0 * j);
+        let masks: Vec<Mask> =
+            (0..MEMO_CAP as u32 + 50).map(|k| FULL & !(k * 2654435761 >> 8)).collect();
+        let fits = move |masks: &[Mask]| -> Vec<Option<[f64; 6]>> {
+            masks
+                .iter()
+                .map(|&m| {
+                    fit(m, &gather(m, &quad))
+                        .map(|f| [f.point.x, f.point.y, f.d_i.x, f.d_i.y, f.d_j.x, f.d_j.y])
+                })
+                .collect()
+        };
+        MEMO.with_borrow_mut(|m| m.clear());
+        let cold = fits(&masks);
+        let warm = fits(&masks);
+        assert_eq!(cold, warm);
+        assert!(MEMO.with_borrow(|m| m.len()) <= MEMO_CAP);
+        // The same from another thread, whose memo starts empty.
+        let other = std::thread::spawn(move || fits(&masks)).join().unwrap();
+        assert_eq!(cold, other);
+        assert!(cold.iter().filter(|f| f.is_some()).count() > 1000);
     }
 }
