@@ -244,6 +244,28 @@ impl NodeIndex {
         self.nearest_within(p, n, f64::INFINITY)
     }
 
+    /// Every node no farther than `limit`, as `(distance, index)`, nearest first (ties by
+    /// index): for a small limit, cheaper than a nearest-`n` search.
+    pub fn within(&self, p: &Point2<f64>, limit: f64) -> Vec<(f64, usize)> {
+        let Some(tree) = &self.tree else { return Vec::new() };
+        if !(p.x.is_finite() && p.y.is_finite() && limit.is_finite() && limit >= 0.0) {
+            return Vec::new();
+        }
+        let q = [p.x, p.y];
+        let mut out: Vec<(f64, usize)> = tree
+            .within_unsorted_exclusive::<SquaredEuclidean>(&q, limit * limit, true)
+            .into_iter()
+            .map(|nn| {
+                let i = nn.item as usize;
+                let (dx, dy) = (self.pos[i].x - p.x, self.pos[i].y - p.y);
+                ((dx * dx + dy * dy).sqrt(), i)
+            })
+            .filter(|e| e.0 <= limit)
+            .collect();
+        out.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        out
+    }
+
     /// Up to `n` nearest nodes no farther than `limit`, as `(distance, index)`, nearest first
     /// (ties by index).
     pub fn nearest_within(&self, p: &Point2<f64>, n: usize, limit: f64) -> Vec<(f64, usize)> {
@@ -645,7 +667,7 @@ impl<'a> Builder<'a> {
         let pred = predict(cells, self.nodes, q)?;
         let gate = self.opts.gate * pred.spacing;
         // Only detections inside the gate matter, which bounds the search.
-        let near = self.index.nearest_within(&pred.point, 2, gate);
+        let near = self.index.within(&pred.point, gate);
         let &(d, k) = near.first()?;
         if d > gate || self.owner[k].is_some() {
             return None;
@@ -817,9 +839,17 @@ mod tests {
                         );
                     }
                 }
+                for limit in [4.0, 9.5, 0.0] {
+                    assert_eq!(
+                        index.within(q, limit),
+                        exhaustive(set, q, set.len(), limit),
+                        "query {q}, limit {limit}"
+                    );
+                }
             }
         }
         assert!(NodeIndex::new(&[]).nearest(&Point2::origin(), 3).is_empty());
+        assert!(NodeIndex::new(&[]).within(&Point2::origin(), 3.0).is_empty());
     }
 
     #[test]
