@@ -7,6 +7,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::{Args, ValueEnum};
+use facetcal_detector::Encoding;
 use facetcal_imageio::{DecodeLimits, LoadOptions};
 use facetcal_model::files::{InputRecord, ViewStatus};
 use facetcal_model::{DistortionKind, Target};
@@ -66,6 +67,11 @@ pub struct CalibrationOptions {
     /// Refuse images with more pixels than this (decompression bombs).
     #[arg(long, default_value_t = DecodeLimits::default().max_pixels)]
     max_pixels: u64,
+    /// How the images' grey levels encode light: linear (default: raw data, most
+    /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
+    /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
+    #[arg(long, default_value = "linear", value_name = "ENCODING")]
+    encoding: Encoding,
 }
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -161,6 +167,7 @@ pub fn settings(args: &CalibrationOptions) -> anyhow::Result<Settings> {
     s.gate.max_rms_px = args.max_rms;
     s.gate.min_coverage = args.min_coverage;
     s.gate.min_used_images = args.min_images;
+    s.detector.encoding = args.encoding;
     Ok(s)
 }
 

@@ -7,7 +7,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::Args;
-use facetcal_detector::{DetectorOptions, GreyImage, MarkProbe, detect, mark_samples};
+use facetcal_detector::{DetectorOptions, Encoding, GreyImage, MarkProbe, detect, mark_samples};
 use facetcal_imageio::LoadOptions;
 use facetcal_matcher::{DetectionsFile, Identification, MatchOptions, identify_with};
 use facetcal_model::Target;
@@ -33,6 +33,11 @@ pub struct DetectArgs {
     /// Replace outputs that already exist.
     #[arg(long)]
     force: bool,
+    /// How the images' grey levels encode light: linear (default: raw data, most
+    /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
+    /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
+    #[arg(long, default_value = "linear", value_name = "ENCODING")]
+    encoding: Encoding,
 }
 
 pub fn run(args: DetectArgs) -> anyhow::Result<ExitCode> {
@@ -48,7 +53,11 @@ pub fn run(args: DetectArgs) -> anyhow::Result<ExitCode> {
 fn detect_one(path: &Path, target: &Target, args: &DetectArgs) -> anyhow::Result<String> {
     let loaded = facetcal_imageio::load(path, &LoadOptions::default())?;
     let grey = GreyImage::from_dynamic(&loaded.image);
-    let opts = DetectorOptions { kinds: target.pattern_kinds(), ..DetectorOptions::default() };
+    let opts = DetectorOptions {
+        kinds: target.pattern_kinds(),
+        encoding: args.encoding,
+        ..DetectorOptions::default()
+    };
     let found = detect(&grey, &opts).with_context(|| format!("detecting in {}", path.display()))?;
     let probe = |p: &[MarkProbe]| mark_samples(&grey, p);
     let id = identify_with(&found, target, &MatchOptions::default(), &probe)?;

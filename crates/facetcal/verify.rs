@@ -7,6 +7,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::Args;
+use facetcal_detector::Encoding;
 use facetcal_pipeline::{ImageCheck, Settings, check_image};
 use nalgebra::Point2;
 use rayon::prelude::*;
@@ -36,6 +37,11 @@ pub struct VerifyArgs {
     /// Replace overlays that already exist.
     #[arg(long)]
     force: bool,
+    /// How the images' grey levels encode light: linear (default: raw data, most
+    /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
+    /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
+    #[arg(long, default_value = "linear", value_name = "ENCODING")]
+    encoding: Encoding,
 }
 
 const PREDICTED: [u8; 3] = [40, 200, 60];
@@ -62,7 +68,8 @@ pub fn run(args: VerifyArgs) -> anyhow::Result<ExitCode> {
     if let Some(dir) = &args.overlay {
         output::create_dir(dir)?;
     }
-    let settings = Settings::default();
+    let mut settings = Settings::default();
+    settings.detector.encoding = args.encoding;
     let results: Vec<anyhow::Result<ImageCheck>> = args
         .images
         .par_iter()

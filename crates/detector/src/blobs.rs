@@ -21,6 +21,7 @@
 use facetcal_model::Ink;
 use nalgebra::{Matrix2, Matrix3, Point2, SymmetricEigen, Vector2, Vector3};
 
+use crate::encoding::Encoding;
 use crate::features::{Dot, Ellipse, Mark, SquareOutline};
 use crate::image::GreyImage;
 use crate::options::DetectorOptions;
@@ -537,10 +538,11 @@ fn sample_cubic(img: &GreyImage, x: f64, y: f64) -> f64 {
 
 /// Mid-level crossing along a profile, for square sides: `(offset, ink level, ground level)`,
 /// the offset along `n` from `p`. The mid level is `level` when given (the mean over a whole
-/// side: the two end samples of one profile carry the full image noise), else the mean of
-/// the profile's two ends.
+/// side: the two end samples of one profile carry the full image noise), else midway in light
+/// between the profile's two ends (see [`Encoding`]).
 fn profile_crossing(
     img: &GreyImage,
+    enc: Encoding,
     p: Point2<f64>,
     n: Vector2<f64>,
     reach: f64,
@@ -559,7 +561,7 @@ fn profile_crossing(
     if hi - lo < 0.02 {
         return None;
     }
-    let mid = level.unwrap_or(0.5 * (lo + hi));
+    let mid = level.unwrap_or_else(|| enc.between(lo, hi, 0.5));
     let mut bracket = None;
     let mut prev = (-steps, lo);
     let mut k = -steps;
@@ -670,6 +672,8 @@ fn intersect(a: &FittedLine, b: &FittedLine) -> Option<(Point2<f64>, Matrix2<f64
 /// Corners of a square-like dark component.
 fn measure_square(
     img: &GreyImage,
+    enc: Encoding,
+    noise: f64,
     c: &Component,
     runs: impl Iterator<Item = Run>,
     inv: &Matrix2<f64>,
@@ -725,7 +729,7 @@ fn measure_square(
         for i in 0..count {
             let s = 0.1 * len + 0.8 * len * (i as f64 + 0.5) / count as f64;
             let base = p + t * s;
-            if let Some((off, lo, hi)) = profile_crossing(img, base, n, reach, None) {
+            if let Some((off, lo, hi)) = profile_crossing(img, enc, base, n, reach, None) {
                 edge.push(base + n * off);
                 ink.push(lo);
                 ground.push(hi);
@@ -734,7 +738,7 @@ fn measure_square(
         // A second pass along the fitted line removes the coarse line's pixel-level error, at
         // the side's mean mid level.
         let (lo, hi) = (median(&mut ink)?, median(&mut ground)?);
-        let level = 0.5 * (lo + hi);
+        let level = enc.between(lo, hi, 0.5);
         let first = fit_line(&edge)?;
         let (lp, ld) = (first.point, first.dir);
         let mut n2 = Vector2::new(-ld.y, ld.x);
@@ -744,7 +748,7 @@ fn measure_square(
         let mut edge2 = Vec::with_capacity(count);
         for e in &edge {
             let base = lp + ld * ld.dot(&(e - lp));
-            if let Some((off, _, _)) = profile_crossing(img, base, n2, reach, Some(level)) {
+            if let Some((off, _, _)) = profile_crossing(img, enc, base, n2, reach, Some(level)) {
                 edge2.push(base + n2 * off);
             }
         }
@@ -757,7 +761,8 @@ fn measure_square(
         // Edge width: the 25 % to 75 % rise of a Gaussian-blurred step is 1.349 sigma.
         let step = (edge2.len() / 8).max(1);
         for e in edge2.iter().step_by(step) {
-            let at = |f: f64| profile_crossing(img, *e, n2, reach, Some(lo + f * (hi - lo)));
+            let at =
+                |f: f64| profile_crossing(img, enc, *e, n2, reach, Some(enc.between(lo, hi, f)));
             if let (Some((a, _, _)), Some((b, _, _))) = (at(0.25), at(0.75)) {
                 widths.push((b - a).abs() / 1.349);
             }
@@ -826,11 +831,15 @@ fn measure_square(
                     v.sort_by(f64::total_cmp);
                     v[((v.len() - 1) as f64 * q).round() as usize]
                 };
-                let level = 0.5 * (quartile(&mut ink, 0.25) + quartile(&mut ground, 0.75));
+                // Noise moves the quartiles by 0.6745 sigma, outward on both sides; that cancels in a
+                // mean of stored levels but not midway in light, so it is taken off first.
+                let q = 0.6745 * noise;
+                let level =
+                    enc.between(quartile(&mut ink, 0.25) + q, quartile(&mut ground, 0.75) - q, 0.5);
                 let pts: Vec<Point2<f64>> = bases
                     .iter()
                     .filter_map(|&base| {
-                        profile_crossing(img, base, n2, reach, Some(level))
+                        profile_crossing(img, enc, base, n2, reach, Some(level))
                             .map(|(o, _, _)| base + n2 * o)
                     })
                     .collect();
@@ -894,14 +903,21 @@ pub(crate) fn detect_blobs(
             && (2.0..2.2).contains(&r)
             && r >= 1.2 * min_whitened_radius(&filled, &spans, &inv);
         if rounded {
-            match measure_square(img, &filled, spans.into_iter(), &inv) {
+            match measure_square(img, opts.encoding, noise, &filled, spans.into_iter(), &inv) {
                 Some(s) => squares.push(s),
                 None => blobs.extend(measure_dot(img, c, noise)),
             }
         } else if r < 2.2 {
             blobs.extend(measure_dot(img, c, noise));
         } else if square_like {
-            squares.extend(measure_square(img, &filled, spans.into_iter(), &inv));
+            squares.extend(measure_square(
+                img,
+                opts.encoding,
+                noise,
+                &filled,
+                spans.into_iter(),
+                &inv,
+            ));
         }
     }
     (blobs, squares)

@@ -20,6 +20,7 @@
 
 mod blobs;
 pub mod checker;
+pub mod encoding;
 pub mod error;
 pub mod features;
 pub mod filter;
@@ -30,6 +31,7 @@ pub mod probe;
 
 use facetcal_model::PatternKind;
 
+pub use encoding::Encoding;
 pub use error::DetectError;
 pub use features::{CheckerCorner, Detections, Dot, Ellipse, Mark, SquareOutline};
 pub use image::GreyImage;

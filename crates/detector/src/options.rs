@@ -3,6 +3,7 @@
 
 use facetcal_model::PatternKind;
 
+use crate::encoding::Encoding;
 use crate::error::DetectError;
 
 /// How to detect. Every field's doc gives its default.
@@ -43,6 +44,9 @@ pub struct DetectorOptions {
     pub max_blob_fraction: f64,
     /// Images with more pixels are refused. Default 2^27 (134 million).
     pub max_pixels: u64,
+    /// How the image's grey levels encode light; square outlines are measured at levels taken
+    /// in light (see [`Encoding`]). Default linear.
+    pub encoding: Encoding,
 }
 
 impl Default for DetectorOptions {
@@ -61,6 +65,7 @@ impl Default for DetectorOptions {
             min_blob_area: 8.0,
             max_blob_fraction: 0.05,
             max_pixels: 1 << 27,
+            encoding: Encoding::Linear,
         }
     }
 }
@@ -117,6 +122,7 @@ impl DetectorOptions {
         if !in_range(self.max_blob_fraction, 1e-6, 1.0) {
             return bad("max_blob_fraction", self.max_blob_fraction, "must lie in (0, 1]");
         }
+        self.encoding.validate()?;
         if self.max_pixels == 0 {
             return bad("max_pixels", 0.0, "must be positive");
         }

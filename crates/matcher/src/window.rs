@@ -225,23 +225,18 @@ fn factor(mask: Mask) -> Option<[[f64; 6]; 6]> {
         }
     }
     let mut a = [[0.0; 6]; 6];
+    let dot = |x: &[f64], y: &[f64]| x.iter().zip(y).map(|(u, v)| u * v).sum::<f64>();
     for c in 0..6 {
-        let mut d = n[packed(c, c)];
-        for k in 0..c {
-            d -= a[c][k] * a[c][k];
-        }
-        // Integer matrices: a singular one leaves a pivot at rounding level, far below this.
-        if !(d > 1e-9) {
+        let d = n[packed(c, c)] - dot(&a[c][..c], &a[c][..c]);
+        // Integer matrices: a singular one leaves a pivot at rounding level, far below this
+        // (a NaN fails the test too).
+        if d.is_nan() || d <= 1e-9 {
             return None;
         }
         let d = d.sqrt();
         a[c][c] = d;
         for r in c + 1..6 {
-            let mut s = n[packed(r, c)];
-            for k in 0..c {
-                s -= a[r][k] * a[c][k];
-            }
-            a[r][c] = s / d;
+            a[r][c] = (n[packed(r, c)] - dot(&a[r][..c], &a[c][..c])) / d;
         }
     }
     Some(a)
@@ -409,7 +404,7 @@ mod tests {
     fn fits_do_not_depend_on_the_memo() {
         let quad = |i: f64, j: f64| Point2::new(500.0 + 20.0 * i + 0.3 * i * j, 400.0 + 19.0 * j);
         let masks: Vec<Mask> =
-            (0..MEMO_CAP as u32 + 50).map(|k| FULL & !(k * 2654435761 >> 8)).collect();
+            (0..MEMO_CAP as u32 + 50).map(|k| FULL & !(k.wrapping_mul(2654435761) >> 8)).collect();
         let fits = move |masks: &[Mask]| -> Vec<Option<[f64; 6]>> {
             masks
                 .iter()

@@ -5,7 +5,8 @@
 use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
 
-use facetcal_detector::{DetectError, DetectorOptions};
+use facetcal_detector::encoding::EncodingParseError;
+use facetcal_detector::{DetectError, DetectorOptions, Encoding};
 use facetcal_render::{PosesSpec, Scene, SceneSpec};
 use serde::{Deserialize, Serialize};
 
@@ -106,10 +107,13 @@ pub struct DetectorOverrides {
     /// [`DetectorOptions::min_blob_area`].
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub min_blob_area: Option<f64>,
+    /// [`DetectorOptions::encoding`], as text (`"srgb"`, `"gamma=0.5"`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub encoding: Option<Encoding>,
 }
 
 /// The names [`DetectorOverrides::set`] accepts.
-pub const OVERRIDE_NAMES: [&str; 9] = [
+pub const OVERRIDE_NAMES: [&str; 10] = [
     "min_contrast",
     "checker_smoothing",
     "ring_radius",
@@ -119,6 +123,7 @@ pub const OVERRIDE_NAMES: [&str; 9] = [
     "noise_factor",
     "threshold_radius",
     "min_blob_area",
+    "encoding",
 ];
 
 impl DetectorOverrides {
@@ -144,6 +149,12 @@ impl DetectorOverrides {
             "min_saddle_balance" => self.min_saddle_balance = Some(num()?),
             "noise_factor" => self.noise_factor = Some(num()?),
             "min_blob_area" => self.min_blob_area = Some(num()?),
+            "encoding" => {
+                self.encoding =
+                    Some(value.parse().map_err(|e: EncodingParseError| {
+                        RegressError::field(name, e.to_string())
+                    })?)
+            }
             "threshold_radius" => {
                 self.threshold_radius = Some(value.trim().parse::<usize>().map_err(|_| {
                     RegressError::field(name, format!("expected a whole number, got \"{value}\""))
@@ -171,6 +182,7 @@ impl DetectorOverrides {
             noise_factor: later.noise_factor.or(self.noise_factor),
             threshold_radius: later.threshold_radius.or(self.threshold_radius),
             min_blob_area: later.min_blob_area.or(self.min_blob_area),
+            encoding: later.encoding.or(self.encoding),
         }
     }
 
@@ -189,7 +201,8 @@ impl DetectorOverrides {
             min_saddle_balance,
             noise_factor,
             threshold_radius,
-            min_blob_area
+            min_blob_area,
+            encoding
         );
         o.validate()?;
         Ok(o)
