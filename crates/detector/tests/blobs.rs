@@ -7,7 +7,7 @@ mod common;
 use common::*;
 use facetcal_detector::{DetectorOptions, correct_dot_centre, detect};
 use facetcal_model::{Face, PatternKind, PatternSpec, Pose, Target};
-use facetcal_render::{Scene, render_view};
+use facetcal_render::{Photometry, Scene, render_view};
 use nalgebra::{Matrix3, Point2};
 
 /// (tilt, tilt axis, in-plane spin), degrees.
@@ -19,6 +19,10 @@ fn scene_of(target: Target, dist: f64) -> Scene {
 }
 
 fn scene_blurred(target: Target, dist: f64, psf: f64) -> Scene {
+    scene_with(target, dist, psf, Photometry { noise_sigma: 2.0, ..Photometry::default() })
+}
+
+fn scene_with(target: Target, dist: f64, psf: f64, photometry: Photometry) -> Scene {
     let (fw, fh) = target.faces()[0].size();
     let centre = Point2::new(fw / 2.0, fh / 2.0);
     let poses = POSES
@@ -28,7 +32,7 @@ fn scene_blurred(target: Target, dist: f64, psf: f64) -> Scene {
     Scene::builder(target, standard_camera())
         .poses(poses)
         .psf_sigma_px(psf)
-        .noise_sigma(2.0)
+        .photometry(photometry)
         .seed(11)
         .build()
         .unwrap()
@@ -232,26 +236,10 @@ fn square_corners_under_a_strong_blur() {
 #[test]
 fn square_corners_in_encoded_images() {
     use facetcal_detector::Encoding;
-    use facetcal_render::Photometry;
     let target = bundled("square-grid.json");
     for (gamma, undeclared_min, declared_max) in [(2.2, 0.3, 0.04), (0.5, 0.3, 0.04)] {
-        let base = scene_of(target.clone(), 650.0);
-        let photometry = Photometry { gamma, noise_sigma: 2.0, ..*base.photometry() };
-        let (fw, fh) = target.faces()[0].size();
-        let centre = Point2::new(fw / 2.0, fh / 2.0);
-        let poses = POSES
-            .iter()
-            .map(|&(t, a, s)| {
-                tilted_pose(centre, 650.0, t.to_radians(), a.to_radians(), s.to_radians())
-            })
-            .collect();
-        let scene = Scene::builder(target.clone(), standard_camera())
-            .poses(poses)
-            .psf_sigma_px(1.0)
-            .photometry(photometry)
-            .seed(11)
-            .build()
-            .unwrap();
+        let photometry = Photometry { gamma, noise_sigma: 2.0, ..Photometry::default() };
+        let scene = scene_with(target.clone(), 650.0, 1.0, photometry);
         let rms = |encoding: Encoding| {
             let opts =
                 DetectorOptions { encoding, ..DetectorOptions::for_kind(PatternKind::SquareGrid) };
