@@ -10,7 +10,7 @@ use clap::{Args, ValueEnum};
 use facetcal_detector::Encoding;
 use facetcal_imageio::{DecodeLimits, LoadOptions};
 use facetcal_model::files::{InputRecord, ViewStatus};
-use facetcal_model::{DistortionKind, Target};
+use facetcal_model::{DistortionKind, PatternKind, Target};
 use facetcal_pipeline::{CalibrationRun, PipelineError, Settings, calibrate_records, list_images};
 use facetcal_solver::{Loss, Options};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
@@ -70,8 +70,9 @@ pub struct CalibrationOptions {
     /// How the images' grey levels encode light: linear (default: raw data, most
     /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
     /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
-    #[arg(long, default_value = "linear", value_name = "ENCODING")]
-    encoding: Encoding,
+    /// Default linear, with a note when the target has squares.
+    #[arg(long, value_name = "ENCODING")]
+    encoding: Option<Encoding>,
 }
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -167,8 +168,27 @@ pub fn settings(args: &CalibrationOptions) -> anyhow::Result<Settings> {
     s.gate.max_rms_px = args.max_rms;
     s.gate.min_coverage = args.min_coverage;
     s.gate.min_used_images = args.min_images;
-    s.detector.encoding = args.encoding;
+    s.detector.encoding = args.encoding.unwrap_or_default();
     Ok(s)
+}
+
+/// Square outlines move with an undeclared grey-level encoding (about 0.5 px for sRGB-like
+/// files), so a target with squares and no `--encoding` gets a note on standard error.
+pub fn note_encoding(target: &Target, declared: Option<Encoding>) {
+    if declared.is_none() && target.pattern_kinds().contains(&PatternKind::SquareGrid) {
+        eprintln!(
+            "note: the target has squares and no --encoding was given, so the images are read as \
+             linear; for sRGB files (most consumer cameras and phones) pass --encoding srgb, or \
+             square corners move by about half a pixel"
+        );
+    }
+}
+
+impl CalibrationOptions {
+    /// The declared encoding, if any.
+    pub fn encoding(&self) -> Option<Encoding> {
+        self.encoding
+    }
 }
 
 /// Reads and checks a target file; its hash goes into every result.
@@ -237,6 +257,7 @@ fn progress_bar(len: usize) -> ProgressBar {
 pub fn run(args: CalibrateArgs) -> anyhow::Result<ExitCode> {
     let settings = settings(&args.options)?;
     let (target, target_record) = load_target(&args.target)?;
+    note_encoding(&target, args.options.encoding());
     if !args.dir.is_dir() {
         return Err(exit::coded(
             exit::NO_INPUT,

@@ -36,13 +36,15 @@ pub struct DetectArgs {
     /// How the images' grey levels encode light: linear (default: raw data, most
     /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
     /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
-    #[arg(long, default_value = "linear", value_name = "ENCODING")]
-    encoding: Encoding,
+    /// Default linear, with a note when the target has squares.
+    #[arg(long, value_name = "ENCODING")]
+    encoding: Option<Encoding>,
 }
 
 pub fn run(args: DetectArgs) -> anyhow::Result<ExitCode> {
     let target = Target::load(&args.target)
         .with_context(|| format!("target file {}", args.target.display()))?;
+    crate::calibrate::note_encoding(&target, args.encoding);
     output::create_dir(&args.out)?;
     if let Some(dir) = &args.overlay {
         output::create_dir(dir)?;
@@ -55,7 +57,7 @@ fn detect_one(path: &Path, target: &Target, args: &DetectArgs) -> anyhow::Result
     let grey = GreyImage::from_dynamic(&loaded.image);
     let opts = DetectorOptions {
         kinds: target.pattern_kinds(),
-        encoding: args.encoding,
+        encoding: args.encoding.unwrap_or_default(),
         ..DetectorOptions::default()
     };
     let found = detect(&grey, &opts).with_context(|| format!("detecting in {}", path.display()))?;

@@ -40,8 +40,9 @@ pub struct VerifyArgs {
     /// How the images' grey levels encode light: linear (default: raw data, most
     /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
     /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
-    #[arg(long, default_value = "linear", value_name = "ENCODING")]
-    encoding: Encoding,
+    /// Default linear, with a note when the target has squares.
+    #[arg(long, value_name = "ENCODING")]
+    encoding: Option<Encoding>,
 }
 
 const PREDICTED: [u8; 3] = [40, 200, 60];
@@ -69,7 +70,8 @@ pub fn run(args: VerifyArgs) -> anyhow::Result<ExitCode> {
         output::create_dir(dir)?;
     }
     let mut settings = Settings::default();
-    settings.detector.encoding = args.encoding;
+    settings.detector.encoding = args.encoding.unwrap_or_default();
+    crate::calibrate::note_encoding(&target, args.encoding);
     let results: Vec<anyhow::Result<ImageCheck>> = args
         .images
         .par_iter()
