@@ -401,13 +401,13 @@ fn measure_dot(img: &GreyImage, c: &Component, noise: f64) -> Option<Blob> {
     let mut centre = c.mean;
     let reach = (a + 8.0).ceil() as isize;
     let mut result = None;
+    let mut annulus: Vec<(Vector2<f64>, f64)> = Vec::new();
     for _ in 0..3 {
         let (cx, cy) = (centre.x.round() as isize, centre.y.round() as isize);
         let (x0, x1) = ((cx - reach).max(0), (cx + reach).min(w - 1));
         let (y0, y1) = ((cy - reach).max(0), (cy + reach).min(h - 1));
         // Ground plane b = p0 + p1 dx + p2 dy on the annulus; ink level from the core.
-        let mut ata = Matrix3::<f64>::zeros();
-        let mut atb = Vector3::<f64>::zeros();
+        annulus.clear();
         let (mut core, mut ncore) = (0.0, 0);
         for y in y0..=y1 {
             for x in x0..=x1 {
@@ -415,9 +415,7 @@ fn measure_dot(img: &GreyImage, c: &Component, noise: f64) -> Option<Blob> {
                 let v = img.get(x as usize, y as usize)? as f64;
                 let m_out = metric(d, 4.0);
                 if m_out > 1.0 && metric(d, 7.0) <= 1.0 {
-                    let r = Vector3::new(1.0, d.x, d.y);
-                    ata += r * r.transpose();
-                    atb += r * v;
+                    annulus.push((d, v));
                 }
                 if metric(d, 0.0) <= 0.25 {
                     core += v;
@@ -428,7 +426,28 @@ fn measure_dot(img: &GreyImage, c: &Component, noise: f64) -> Option<Blob> {
         if ncore == 0 {
             return None;
         }
-        let plane = ata.try_inverse()? * atb;
+        let fit = |keep: &dyn Fn(Vector2<f64>, f64) -> bool| {
+            let mut ata = Matrix3::<f64>::zeros();
+            let mut atb = Vector3::<f64>::zeros();
+            for &(d, v) in annulus.iter().filter(|(d, v)| keep(*d, *v)) {
+                let r = Vector3::new(1.0, d.x, d.y);
+                ata += r * r.transpose();
+                atb += r * v;
+            }
+            ata.try_inverse().map(|m| m * atb)
+        };
+        let first = fit(&|_, _| true)?;
+        // An occluder or a neighbour reaching into the annulus is no ground: pixels off the
+        // plane by more than 4 noise sigmas (and 2 % of the scale) are left out of a second fit.
+        let limit = (4.0 * noise).max(0.02);
+        let off = |p: &Vector3<f64>, d: Vector2<f64>, v: f64| {
+            (v - (p[0] + p[1] * d.x + p[2] * d.y)).abs() > limit
+        };
+        let plane = if annulus.iter().any(|&(d, v)| off(&first, d, v)) {
+            fit(&|d, v| !off(&first, d, v))?
+        } else {
+            first
+        };
         let ink = core / ncore as f64;
         let (mut sw, mut sx, mut sy) = (0.0, 0.0, 0.0);
         let (mut sxx, mut sxy, mut syy) = (0.0, 0.0, 0.0);
