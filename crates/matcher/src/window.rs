@@ -132,8 +132,9 @@ const MEMO_CAP: usize = 4096;
 type Weights = Option<[[f64; 24]; 3]>;
 
 thread_local! {
-    // The weights depend on the mask alone, and a face's windows repeat a few hundred masks.
-    // A memo of a pure function: results are the same whatever it holds.
+    // The weights depend on the mask alone, and masks recur: a clean face's windows are whole
+    // or one of the few border shapes. A memo of a pure function: results are the same
+    // whatever it holds.
     static MEMO: RefCell<HashMap<Mask, Weights, BuildHasherDefault<MaskHasher>>> =
         RefCell::new(HashMap::default());
 }
@@ -166,6 +167,7 @@ pub(crate) fn fit(mask: Mask, pts: &[Point2<f64>; 24]) -> Option<WindowFit> {
         if memo.len() >= MEMO_CAP && !memo.contains_key(&mask) {
             memo.clear();
         }
+        // Weights exist only for masks of six cells or more, so `origin` below has a cell.
         let w = memo.entry(mask).or_insert_with(|| weights(mask)).as_ref()?;
         // Coordinates about the first present cell: small values keep the sums free of
         // cancellation. Absent cells have zero weight.
