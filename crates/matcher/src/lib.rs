@@ -55,10 +55,16 @@ pub use output::{
 
 use lattice::{
     Builder, Cell, Cells, Component, Dense, Grid, Node, line_direction, local_map, prune,
+    value_outliers,
 };
 use place::{CandidateView, Placement, SeenMark, inside, place, rotate, unrotate};
 
 /// How the matcher decides. Every tolerance is relative to the local feature spacing in the
+/// Largest relative departure of a dot's area from the window fit of its neighbours' areas.
+/// Intact dots depart by a few percent at most (the area varies smoothly with the view, and
+/// the fit is quadratic); a dot cut by an occluder by tens of percent.
+const DOT_AREA_TOLERANCE: f64 = 0.12;
+
 /// image, so the defaults hold at any image scale.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct MatchOptions {
@@ -851,6 +857,19 @@ fn identify_kind(
                 pruned.residual
             }
         };
+        // A dot cut by an occluder keeps nearly its shape but not its area, and its centre
+        // moves with the cut: one whose area departs from its neighbours' fit is left out.
+        let area = |k: usize| {
+            (refs[k].kind == DetectionKind::Dot)
+                .then(|| det.dots.get(refs[k].index).map(|d| d.area))
+                .flatten()
+        };
+        for (c, k) in value_outliers(&grid, &area, DOT_AREA_TOLERANCE) {
+            grid.set(c, None);
+            result
+                .left_out
+                .push(LeftOut { detection: refs[k], reason: LeftOutReason::SizeResidual });
+        }
         // In (row, col) order, the order of the output's feature ids.
         let mut cells: Vec<(Cell, usize)> = grid.occupied().collect();
         cells.sort_unstable_by_key(|&((col, row), _)| (row, col));

@@ -180,6 +180,9 @@ pub enum LeftOutReason {
     NoLattice,
     /// Its position disagrees with the fit of its lattice neighbours.
     FitResidual,
+    /// Its size (a dot's area) disagrees with the fit of its lattice neighbours' sizes: a dot
+    /// cut by an occluder.
+    SizeResidual,
     /// Its candidate was placed, but it falls beyond the face (a stray node, counted as one of
     /// the tolerated conflicts).
     OutsideFace,
@@ -200,6 +203,7 @@ impl LeftOutReason {
             LeftOutReason::KindNotInTarget => "kind-not-in-target",
             LeftOutReason::NoLattice => "no-lattice",
             LeftOutReason::FitResidual => "fit-residual",
+            LeftOutReason::SizeResidual => "size-residual",
             LeftOutReason::OutsideFace => "outside-face",
             LeftOutReason::CornerOrder => "corner-order",
             LeftOutReason::Candidate { rejection } => rejection.name(),
