@@ -67,12 +67,8 @@ pub struct CalibrationOptions {
     /// Refuse images with more pixels than this (decompression bombs).
     #[arg(long, default_value_t = DecodeLimits::default().max_pixels)]
     max_pixels: u64,
-    /// How the images' grey levels encode light: linear (default: raw data, most
-    /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
-    /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
-    /// Default linear, with a note when the target has squares.
-    #[arg(long, value_name = "ENCODING")]
-    encoding: Option<Encoding>,
+    #[command(flatten)]
+    encoding: EncodingArg,
 }
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -168,26 +164,44 @@ pub fn settings(args: &CalibrationOptions) -> anyhow::Result<Settings> {
     s.gate.max_rms_px = args.max_rms;
     s.gate.min_coverage = args.min_coverage;
     s.gate.min_used_images = args.min_images;
-    s.detector.encoding = args.encoding.unwrap_or_default();
+    s.detector.encoding = args.encoding.encoding();
     Ok(s)
 }
 
-/// Square outlines move with an undeclared grey-level encoding (about 0.5 px for sRGB-like
-/// files), so a target with squares and no `--encoding` gets a note on standard error.
-pub fn note_encoding(target: &Target, declared: Option<Encoding>) {
-    if declared.is_none() && target.pattern_kinds().contains(&PatternKind::SquareGrid) {
-        eprintln!(
-            "note: the target has squares and no --encoding was given, so the images are read as \
-             linear; for sRGB files (most consumer cameras and phones) pass --encoding srgb, or \
-             square corners move by about half a pixel"
-        );
+/// The `--encoding` option of every command that detects.
+#[derive(Args, Debug, Clone)]
+pub struct EncodingArg {
+    /// How the images' grey levels encode light: linear (default: raw data, most
+    /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
+    /// level linear^(1/G)). Square outlines move with an undeclared encoding; a target with
+    /// squares read without this option gets a note.
+    #[arg(long, value_name = "ENCODING")]
+    encoding: Option<Encoding>,
+}
+
+impl EncodingArg {
+    /// The encoding to read the images with: the declared one, else linear.
+    pub fn encoding(&self) -> Encoding {
+        self.encoding.unwrap_or_default()
+    }
+
+    /// Square outlines move with an undeclared encoding (about 0.5 px for sRGB-like files), so
+    /// a target with squares and no `--encoding` gets a note on standard error.
+    pub fn note(&self, target: &Target) {
+        if self.encoding.is_none() && target.pattern_kinds().contains(&PatternKind::SquareGrid) {
+            eprintln!(
+                "note: the target has squares and no --encoding was given, so the images are \
+                 read as linear; for sRGB files (most consumer cameras and phones) pass \
+                 --encoding srgb, or square corners move by about half a pixel"
+            );
+        }
     }
 }
 
 impl CalibrationOptions {
-    /// The declared encoding, if any.
-    pub fn encoding(&self) -> Option<Encoding> {
-        self.encoding
+    /// The `--encoding` option.
+    pub fn encoding(&self) -> &EncodingArg {
+        &self.encoding
     }
 }
 
@@ -257,7 +271,7 @@ fn progress_bar(len: usize) -> ProgressBar {
 pub fn run(args: CalibrateArgs) -> anyhow::Result<ExitCode> {
     let settings = settings(&args.options)?;
     let (target, target_record) = load_target(&args.target)?;
-    note_encoding(&target, args.options.encoding());
+    args.options.encoding().note(&target);
     if !args.dir.is_dir() {
         return Err(exit::coded(
             exit::NO_INPUT,

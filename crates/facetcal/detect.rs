@@ -7,12 +7,13 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::Args;
-use facetcal_detector::{DetectorOptions, Encoding, GreyImage, MarkProbe, detect, mark_samples};
+use facetcal_detector::{DetectorOptions, GreyImage, MarkProbe, detect, mark_samples};
 use facetcal_imageio::LoadOptions;
 use facetcal_matcher::{DetectionsFile, Identification, MatchOptions, identify_with};
 use facetcal_model::Target;
 use image::{Rgb, RgbImage};
 
+use crate::calibrate::EncodingArg;
 use crate::output;
 
 #[derive(Args, Debug)]
@@ -33,18 +34,14 @@ pub struct DetectArgs {
     /// Replace outputs that already exist.
     #[arg(long)]
     force: bool,
-    /// How the images' grey levels encode light: linear (default: raw data, most
-    /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
-    /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
-    /// Default linear, with a note when the target has squares.
-    #[arg(long, value_name = "ENCODING")]
-    encoding: Option<Encoding>,
+    #[command(flatten)]
+    encoding: EncodingArg,
 }
 
 pub fn run(args: DetectArgs) -> anyhow::Result<ExitCode> {
     let target = Target::load(&args.target)
         .with_context(|| format!("target file {}", args.target.display()))?;
-    crate::calibrate::note_encoding(&target, args.encoding);
+    args.encoding.note(&target);
     output::create_dir(&args.out)?;
     if let Some(dir) = &args.overlay {
         output::create_dir(dir)?;
@@ -57,7 +54,7 @@ fn detect_one(path: &Path, target: &Target, args: &DetectArgs) -> anyhow::Result
     let grey = GreyImage::from_dynamic(&loaded.image);
     let opts = DetectorOptions {
         kinds: target.pattern_kinds(),
-        encoding: args.encoding.unwrap_or_default(),
+        encoding: args.encoding.encoding(),
         ..DetectorOptions::default()
     };
     let found = detect(&grey, &opts).with_context(|| format!("detecting in {}", path.display()))?;

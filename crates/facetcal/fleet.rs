@@ -14,7 +14,7 @@ use facetcal_pipeline::{Settings, calibrate_records, list_images};
 use rayon::prelude::*;
 
 use crate::calibrate::{
-    CalibrationOptions, check_free, load_target, note_encoding, program, settings, write_results,
+    CalibrationOptions, check_free, load_target, program, settings, write_results,
 };
 use crate::{exit, output};
 
@@ -202,7 +202,7 @@ pub fn run(args: FleetArgs) -> anyhow::Result<ExitCode> {
     };
     let settings = settings(&args.options)?;
     let (target, target_record) = load_target(&target_path)?;
-    note_encoding(&target, args.options.encoding());
+    args.options.encoding().note(&target);
     let spec = args.spec.as_deref().map(load_spec).transpose()?;
     if !root.is_dir() {
         return Err(exit::coded(

@@ -7,12 +7,11 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::Args;
-use facetcal_detector::Encoding;
 use facetcal_pipeline::{ImageCheck, Settings, check_image};
 use nalgebra::Point2;
 use rayon::prelude::*;
 
-use crate::calibrate::load_target;
+use crate::calibrate::{EncodingArg, load_target};
 use crate::undistort::load_calibration;
 use crate::{exit, output};
 
@@ -37,12 +36,8 @@ pub struct VerifyArgs {
     /// Replace overlays that already exist.
     #[arg(long)]
     force: bool,
-    /// How the images' grey levels encode light: linear (default: raw data, most
-    /// machine-vision cameras), srgb (most consumer cameras and phones), or gamma=G (stored
-    /// level linear^(1/G)). Square and dot outlines move with an undeclared encoding.
-    /// Default linear, with a note when the target has squares.
-    #[arg(long, value_name = "ENCODING")]
-    encoding: Option<Encoding>,
+    #[command(flatten)]
+    encoding: EncodingArg,
 }
 
 const PREDICTED: [u8; 3] = [40, 200, 60];
@@ -70,8 +65,8 @@ pub fn run(args: VerifyArgs) -> anyhow::Result<ExitCode> {
         output::create_dir(dir)?;
     }
     let mut settings = Settings::default();
-    settings.detector.encoding = args.encoding.unwrap_or_default();
-    crate::calibrate::note_encoding(&target, args.encoding);
+    settings.detector.encoding = args.encoding.encoding();
+    args.encoding.note(&target);
     let results: Vec<anyhow::Result<ImageCheck>> = args
         .images
         .par_iter()

@@ -14,9 +14,7 @@ use facetcal_model::files::{InputRecord, ViewStatus};
 use facetcal_pipeline::{Settings, calibrate_records, list_images, observe_images_par};
 use facetcal_watch::{Config, HandOver, Outcome, Processor, WatchError};
 
-use crate::calibrate::{
-    CalibrationOptions, load_target, note_encoding, program, settings, write_results,
-};
+use crate::calibrate::{CalibrationOptions, load_target, program, settings, write_results};
 use crate::exit;
 
 #[derive(Args, Debug)]
@@ -116,7 +114,7 @@ fn seconds(name: &str, s: f64) -> anyhow::Result<Duration> {
 pub fn run(args: WatchArgs) -> anyhow::Result<ExitCode> {
     let settings = settings(&args.options)?;
     let (target, target_record) = load_target(&args.target)?;
-    note_encoding(&target, args.options.encoding());
+    args.options.encoding().note(&target);
     if args.marker.as_deref().is_some_and(|m| m.is_empty() || m.contains('/')) {
         return Err(exit::coded(exit::USAGE, "--marker must be a plain file name"));
     }

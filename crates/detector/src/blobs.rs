@@ -850,8 +850,9 @@ fn measure_square(
                     v.sort_by(f64::total_cmp);
                     v[((v.len() - 1) as f64 * q).round() as usize]
                 };
-                // Noise moves the quartiles by 0.6745 sigma, outward on both sides; that cancels in a
-                // mean of stored levels but not midway in light, so it is taken off first.
+                // Noise moves the quartiles by 0.6745 sigma, outward on both sides; that
+                // cancels in a mean of stored levels but not midway in light, so it is taken
+                // off first.
                 let q = 0.6745 * noise;
                 let level =
                     enc.between(quartile(&mut ink, 0.25) + q, quartile(&mut ground, 0.75) - q, 0.5);

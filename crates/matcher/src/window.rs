@@ -132,9 +132,8 @@ const MEMO_CAP: usize = 4096;
 type Weights = Option<[[f64; 24]; 3]>;
 
 thread_local! {
-    // The weights depend on the mask alone, and masks recur: a clean face's windows are whole
-    // or one of the few border shapes. A memo of a pure function: results are the same
-    // whatever it holds.
+    // The weights depend on the mask alone, and masks recur across a face's windows. A memo of
+    // a pure function: results are the same whatever it holds.
     static MEMO: RefCell<HashMap<Mask, Weights, BuildHasherDefault<MaskHasher>>> =
         RefCell::new(HashMap::default());
 }
