@@ -51,6 +51,35 @@ fn bundled_suite_covers_every_pattern_kind_and_axis_and_has_a_baseline() {
     }
 }
 
+/// The number that precedes `words` in `text` (`"39 rendered scenarios"` -> 39), for each place.
+fn counts_before(text: &str, words: &str) -> Vec<usize> {
+    text.match_indices(words)
+        .filter_map(|(i, _)| text[..i].trim_end().rsplit(|c: char| !c.is_ascii_digit()).next())
+        .filter_map(|n| n.parse().ok())
+        .collect()
+}
+
+/// What the README and the contributor guide state about the suite (scenario count, quick
+/// count, views per scenario) is what the suite file holds.
+#[test]
+fn documents_state_the_suites_true_figures() {
+    let suite = Suite::load(&suite_path()).unwrap();
+    let total = suite.scenarios.len();
+    let quick = suite.scenarios.iter().filter(|s| s.quick).count();
+    let readme = std::fs::read_to_string(root().join("README.md")).unwrap();
+    assert_eq!(counts_before(&readme, " rendered scenarios"), [total], "README scenario count");
+    assert_eq!(counts_before(&readme, " of them quick"), [quick], "README quick count");
+    let guide = std::fs::read_to_string(root().join("DEVELOPERS.md")).unwrap();
+    assert_eq!(counts_before(&guide, " scenarios of 2 views"), [total], "guide scenario count");
+    assert_eq!(counts_before(&guide, " are quick"), [quick], "guide quick count");
+    for sc in &suite.scenarios {
+        assert_eq!(sc.scene.view_count(), 2, "{}: 2 views each", sc.name);
+        if sc.quick {
+            assert!(guide.contains(&sc.name), "the guide names quick scenario {}", sc.name);
+        }
+    }
+}
+
 fn cache_files(dir: &Path) -> Vec<String> {
     let mut v: Vec<String> = std::fs::read_dir(dir)
         .unwrap()

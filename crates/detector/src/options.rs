@@ -21,7 +21,8 @@ pub struct DetectorOptions {
     /// 0.6 times it); should stay below a third of the smallest cell side. Default 5.
     pub ring_radius: f64,
     /// Standard deviation, pixels, of the Gaussian whose smoothed image's saddle point locates a
-    /// checker corner; the pixels used lie within `3 refine_sigma` of the corner. Default 2.
+    /// checker corner; the derivative kernels reach `5 refine_sigma` from the corner (a 3-sigma cut
+    /// moves with the subpixel phase). Default 2.
     pub refine_sigma: f64,
     /// Largest ring asymmetry `sum |v(t) - v(t + pi)| / sum |v(t) - mean|` of a checker corner.
     /// Default 0.2.

@@ -59,13 +59,13 @@ use lattice::{
 };
 use place::{CandidateView, Placement, SeenMark, inside, place, rotate, unrotate};
 
-/// How the matcher decides. Every tolerance is relative to the local feature spacing in the
 /// Largest relative departure of a dot's area from the window fit of its neighbours' areas.
 /// The area varies smoothly with the view and the fit is quadratic: no intact dot of the
 /// regression suite's dot scenarios or of the rendered views departs this far, while the dot
 /// that an occluder cut to 0.76 of its neighbours' area (1.39 px off) does.
 const DOT_AREA_TOLERANCE: f64 = 0.12;
 
+/// How the matcher decides. Every tolerance is relative to the local feature spacing in the
 /// image, so the defaults hold at any image scale.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct MatchOptions {
