@@ -2,12 +2,16 @@
 //! that a person reads at a glance, with SVG plots drawn from a calibration result and the
 //! observations it was computed from.
 //!
-//! Plots, each an `<svg class="plot">` inside a `<figure>` with a stable id:
-//! - `plot-residuals`: reprojection residual vectors across the image, scaled so the largest
-//!   ones are visible, with a legend arrow;
+//! Plots, each an `<svg class="plot">` (drawn with [`plot::Plot`]: title, axes with ticks and
+//! units, legend) inside a `<figure>` with a stable id:
+//! - `plot-residuals`: residual vectors across the image, one colour per view, magnified by a
+//!   stated factor with a scale bar in px;
+//! - `plot-scatter`: dx against dy with 1, 2 and 3 sigma circles;
+//! - `plot-histogram`: residual lengths against the Rayleigh distribution of the same sigma;
+//! - `plot-view-errors`: each image's residual lengths as a strip of dots with its RMS marked,
+//!   worst first, over the band of the expected noise; left-out images with their full reasons;
 //! - `plot-coverage`: how well the detected points cover the image, cell by cell, and the cells
 //!   that need more shots;
-//! - `plot-view-errors`: RMS reprojection error per image, with dropped images and their reasons;
 //! - `plot-distortion`: the lens distortion field, the displacement from the pinhole image.
 //!
 //! Then a table of every parameter with its standard deviation and status, the warnings, the
@@ -15,7 +19,8 @@
 //! messages) is escaped.
 //!
 //! The [`page`] module holds the parts every facetcal HTML page shares (head and security
-//! policy, plot element, figure grid), used by the regression and fleet pages too.
+//! policy, figure grid) and [`plot`] the charts, used by the regression and fleet pages too;
+//! [`residuals`] draws the residual plots.
 //!
 //! This crate only builds text; it never reads or writes files.
 #![deny(missing_docs)]
@@ -24,13 +29,15 @@
 #![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 pub mod page;
+pub mod plot;
+pub mod residuals;
 
 use std::fmt::Write;
 
 use facetcal_model::files::{CalibrationFile, ParameterStatus, Verdict, ViewPoints, ViewStatus};
 use facetcal_sheet::escape_xml as esc;
 use nalgebra::Point2;
-use page::{Script, figure_grid, page_head, plot_area, round_125, svg_open};
+use page::{Script, figure_grid, page_head};
 
 /// Columns and rows of the coverage grid.
 pub const COVERAGE_GRID: (usize, usize) = (12, 9);
@@ -60,233 +67,97 @@ pub fn coverage(width: u32, height: u32, views: &[ViewPoints]) -> (Vec<Vec<usize
     (counts, covered as f64 / (gx * gy) as f64)
 }
 
-/// A plot area mapping image pixels into an SVG of fixed width.
-struct Frame {
-    width: f64,
-    height: f64,
-    scale: f64,
-}
-
-impl Frame {
-    const W: f64 = 560.0;
-    const PAD: f64 = 24.0;
-
-    fn new(image_w: u32, image_h: u32) -> Frame {
-        let scale = Frame::W / image_w.max(1) as f64;
-        Frame { width: image_w as f64, height: image_h as f64, scale }
-    }
-
-    fn x(&self, u: f64) -> f64 {
-        Frame::PAD + (u + 0.5) * self.scale
-    }
-
-    fn y(&self, v: f64) -> f64 {
-        Frame::PAD + (v + 0.5) * self.scale
-    }
-
-    fn open(&self, o: &mut String, label: &str) {
-        let w = Frame::W + 2.0 * Frame::PAD;
-        let h = self.height * self.scale + 2.0 * Frame::PAD + 18.0;
-        svg_open(o, label, w, h);
-        plot_area(o, Frame::PAD, Frame::PAD, self.width * self.scale, self.height * self.scale);
-    }
-
-    fn caption(&self, o: &mut String, text: &str) {
-        let _ = writeln!(
-            o,
-            r##"<text x="{:.1}" y="{:.1}" font-size="12" fill="#222">{}</text>"##,
-            Frame::PAD,
-            self.height * self.scale + 2.0 * Frame::PAD + 10.0,
-            esc(text)
-        );
-    }
-}
-
-fn arrow(o: &mut String, x0: f64, y0: f64, x1: f64, y1: f64, colour: &str) {
-    let _ = writeln!(
-        o,
-        r##"<line x1="{x0:.2}" y1="{y0:.2}" x2="{x1:.2}" y2="{y1:.2}" stroke="{colour}" stroke-width="1.2" marker-end="url(#head)"/>"##
-    );
-}
-
-const MARKER: &str = r##"<defs><marker id="head" viewBox="0 0 6 6" refX="5" refY="3" markerWidth="5" markerHeight="5" orient="auto"><path d="M0,0 L6,3 L0,6 z" fill="context-stroke"/></marker></defs>"##;
-
-fn residual_plot(cal: &CalibrationFile, obs: &[ViewPoints]) -> String {
-    let f = Frame::new(cal.camera.width, cal.camera.height);
-    let mut o = String::new();
-    f.open(&mut o, "reprojection residuals across the image");
-    o.push_str(MARKER);
-    let mut mags: Vec<f64> = Vec::new();
-    for (v, res) in obs.iter().zip(&cal.views) {
-        if res.status != ViewStatus::Used {
-            continue;
-        }
-        mags.extend(res.residuals.iter().map(|r| r[0].hypot(r[1])));
-        let _ = v;
-    }
-    mags.sort_by(f64::total_cmp);
-    let p95 = mags.get(mags.len().saturating_sub(1) * 95 / 100).copied().unwrap_or(0.0);
-    // The 95th percentile residual is drawn 18 plot units long.
-    let gain = if p95 > 0.0 { 18.0 / p95 } else { 1.0 };
-    for (v, res) in obs.iter().zip(&cal.views) {
-        if res.status != ViewStatus::Used {
-            continue;
-        }
-        for (p, r) in v.points.iter().zip(&res.residuals) {
-            let (x, y) = (f.x(p.image[0]), f.y(p.image[1]));
-            arrow(&mut o, x, y, x + r[0] * gain, y + r[1] * gain, "#c0392b");
-        }
-    }
-    let legend_px = round_125(p95.max(1e-3));
-    f.caption(&mut o, &format!("arrow of {legend_px} px drawn {:.0} units long", legend_px * gain));
-    let y = f.height * f.scale + 2.0 * Frame::PAD + 4.0;
-    arrow(&mut o, 360.0, y, 360.0 + legend_px * gain, y, "#c0392b");
-    o.push_str("</svg>\n");
-    o
-}
-
 fn coverage_plot(cal: &CalibrationFile, obs: &[ViewPoints]) -> (String, f64) {
-    let f = Frame::new(cal.camera.width, cal.camera.height);
-    let (counts, share) = coverage(cal.camera.width, cal.camera.height, obs);
+    let (w, h) = (cal.camera.width, cal.camera.height);
+    let (counts, share) = coverage(w, h, obs);
     let (gx, gy) = COVERAGE_GRID;
     let max = counts.iter().flatten().copied().max().unwrap_or(0).max(1);
-    let mut o = String::new();
-    f.open(&mut o, "coverage of the image by detected points");
-    let cw = f.width * f.scale / gx as f64;
-    let ch = f.height * f.scale / gy as f64;
+    let mut p = residuals::image_plot("Coverage of the image by detected points", w, h);
+    let cw = w as f64 / gx as f64;
+    let ch = h as f64 / gy as f64;
     for (r, row) in counts.iter().enumerate() {
         for (c, &n) in row.iter().enumerate() {
-            let x = Frame::PAD + c as f64 * cw;
-            let y = Frame::PAD + r as f64 * ch;
+            let (x0, y0) = (c as f64 * cw - 0.5, r as f64 * ch - 0.5);
             if n == 0 {
-                let _ = writeln!(
-                    o,
-                    r##"<rect class="empty-cell" x="{x:.1}" y="{y:.1}" width="{cw:.1}" height="{ch:.1}" fill="#fdecea" stroke="#c0392b" stroke-dasharray="3 2"/>"##
+                p.rect(
+                    x0,
+                    y0,
+                    x0 + cw,
+                    y0 + ch,
+                    "#fdecea",
+                    r##" class="empty-cell" stroke="#c0392b" stroke-dasharray="3 2""##,
                 );
             } else {
                 let a = 0.15 + 0.85 * (n as f64 / max as f64);
-                let _ = writeln!(
-                    o,
-                    r##"<rect x="{x:.1}" y="{y:.1}" width="{cw:.1}" height="{ch:.1}" fill="#1f77b4" fill-opacity="{a:.3}" stroke="#fff"/>"##
-                );
+                let extra = format!(r##" fill-opacity="{a:.3}" stroke="#fff""##);
+                p.rect(x0, y0, x0 + cw, y0 + ch, "#1f77b4", &extra);
             }
         }
     }
     for v in obs {
-        for p in &v.points {
-            let _ = writeln!(
-                o,
-                r##"<circle cx="{:.1}" cy="{:.1}" r="0.8" fill="#111"/>"##,
-                f.x(p.image[0]),
-                f.y(p.image[1])
-            );
+        for q in &v.points {
+            p.circle(q.image[0], q.image[1], 0.8, "#111");
         }
     }
-    f.caption(
-        &mut o,
-        &format!(
-            "{:.0} % of the {gx} x {gy} cells hold points; dashed red cells need shots with the target there",
-            share * 100.0
-        ),
-    );
-    o.push_str("</svg>\n");
-    (o, share)
-}
-
-fn view_error_plot(cal: &CalibrationFile) -> String {
-    let n = cal.views.len().max(1);
-    let row = 18.0;
-    let label_w = 200.0;
-    let bar_w = 320.0;
-    let h = n as f64 * row + 40.0;
-    let max = cal.views.iter().filter_map(|v| v.rms_px).fold(cal.rms_px, f64::max).max(1e-6);
-    let mut o = String::new();
-    svg_open(&mut o, "RMS reprojection error per image", label_w + bar_w + 80.0, h);
-    for (i, v) in cal.views.iter().enumerate() {
-        let y = 10.0 + i as f64 * row;
-        let _ = writeln!(
-            o,
-            r##"<text x="{:.0}" y="{:.1}" font-size="11" text-anchor="end">{}</text>"##,
-            label_w - 6.0,
-            y + 12.0,
-            esc(&v.name)
-        );
-        match (v.status, v.rms_px) {
-            (ViewStatus::Used, Some(rms)) => {
-                let w = bar_w * rms / max;
-                let _ = writeln!(
-                    o,
-                    r##"<rect class="bar" x="{label_w:.0}" y="{:.1}" width="{w:.1}" height="{:.1}" fill="#2e86c1"/><text x="{:.1}" y="{:.1}" font-size="11">{rms:.3} px</text>"##,
-                    y + 2.0,
-                    row - 5.0,
-                    label_w + w + 4.0,
-                    y + 12.0
-                );
-            }
-            _ => {
-                let status = if v.status == ViewStatus::Failed { "failed" } else { "dropped" };
-                let reason = v.reason.as_deref().unwrap_or("no reason given");
-                let _ = writeln!(
-                    o,
-                    r##"<text x="{label_w:.0}" y="{:.1}" font-size="11" fill="#7f8c8d">{status}: {}</text>"##,
-                    y + 12.0,
-                    esc(reason)
-                );
-            }
-        }
-    }
-    let x = label_w + bar_w * cal.rms_px / max;
-    let _ = writeln!(
-        o,
-        r##"<line x1="{x:.1}" y1="4" x2="{x:.1}" y2="{:.1}" stroke="#c0392b" stroke-dasharray="4 3"/><text x="{x:.1}" y="{:.1}" font-size="11" fill="#c0392b">overall {:.3} px</text>"##,
-        h - 24.0,
-        h - 10.0,
-        cal.rms_px
-    );
-    o.push_str("</svg>\n");
-    o
+    p.legend("#1f77b4", plot::Mark::Box, "cell with points (darker: more)");
+    p.legend("#fdecea", plot::Mark::Box, "cell without points: take shots with the target there");
+    p.note(&format!(
+        "{:.0} % of the {gx} x {gy} cells hold points. {}",
+        share * 100.0,
+        residuals::IMAGE_CONVENTION
+    ));
+    (p.finish(2), share)
 }
 
 fn distortion_plot(cal: &CalibrationFile) -> String {
     let cam = &cal.camera;
-    let f = Frame::new(cam.width, cam.height);
-    let mut o = String::new();
-    f.open(&mut o, "lens distortion field");
-    o.push_str(MARKER);
+    let mut p = residuals::image_plot("Lens distortion field", cam.width, cam.height);
     let (nx, ny) = (16, 12);
     let mut field = Vec::new();
     for j in 0..=ny {
         for i in 0..=nx {
-            let p = Point2::new(
-                -0.5 + cam.width as f64 * i as f64 / nx as f64,
-                -0.5 + cam.height as f64 * j as f64 / ny as f64,
+            let q = Point2::new(
+                -0.5 + cam.width as f64 * (i as f64 + 0.5) / (nx + 1) as f64,
+                -0.5 + cam.height as f64 * (j as f64 + 0.5) / (ny + 1) as f64,
             );
-            if let Ok(q) = cam.undistort_pixel(&p) {
-                let d = p - q;
+            if let Ok(u) = cam.undistort_pixel(&q) {
+                let d = q - u;
                 if d.x.is_finite() && d.y.is_finite() {
-                    field.push((p, d));
+                    field.push((q, d));
                 }
             }
         }
     }
     let max = field.iter().map(|(_, d)| d.norm()).fold(0.0, f64::max);
-    let gain = if max > 0.0 { 0.9 * (f.width * f.scale / nx as f64) / max } else { 0.0 };
-    for (p, d) in &field {
-        let (x, y) = (f.x(p.x), f.y(p.y));
-        if gain > 0.0 {
-            arrow(&mut o, x - d.x * gain, y - d.y * gain, x, y, "#8e44ad");
-        }
-        let _ = writeln!(o, r##"<circle cx="{x:.1}" cy="{y:.1}" r="1.2" fill="#8e44ad"/>"##);
-    }
-    f.caption(
-        &mut o,
-        &format!(
-            "{} model; arrows run from the pinhole position to the observed one; largest shift {max:.1} px",
-            cam.distortion.kind().name()
-        ),
+    // The largest shift is drawn 0.9 grid cells long; the factor is a round number.
+    let gain =
+        if max > 0.0 { page::round_125(0.9 * cam.width as f64 / nx as f64 / max) } else { 1.0 };
+    let s = p.x_scale();
+    let _ = writeln!(
+        p.svg(),
+        r##"<marker id="dhead" viewBox="0 0 6 6" refX="5" refY="3" markerWidth="5" markerHeight="5" orient="auto"><path d="M0,0 L6,3 L0,6 z" fill="#8e44ad"/></marker>"##
     );
-    o.push_str("</svg>\n");
-    o
+    for (q, d) in &field {
+        let (x, y) = (p.x(q.x), p.y(q.y));
+        if max > 0.0 {
+            let _ = writeln!(
+                p.svg(),
+                r##"<line x1="{:.1}" y1="{:.1}" x2="{x:.1}" y2="{y:.1}" stroke="#8e44ad" stroke-width="1.1" marker-end="url(#dhead)"/>"##,
+                x - d.x * gain * s,
+                y - d.y * gain * s
+            );
+        }
+        p.circle(q.x, q.y, 1.2, "#8e44ad");
+    }
+    p.note(&format!(
+        "{} model. Arrows run from the pinhole (undistorted) position to the observed one, \
+         magnified {} times; largest shift {} px. {}",
+        cam.distortion.kind().name(),
+        plot::factor(gain),
+        plot::sig(max, 3),
+        residuals::IMAGE_CONVENTION
+    ));
+    p.finish(1)
 }
 
 fn parameter_table(cal: &CalibrationFile) -> String {
@@ -355,11 +226,15 @@ table.verdict td:last-child { text-align: left; }
 .warn { color: #a04000; }
 .pass { color: #1e7b34; }
 .fail { color: #b3261e; font-weight: bold; }
+figure { max-width: 100%; }
+ul.left-out { max-width: 560px; margin: 4px 0; padding-left: 18px; font-size: 13px; overflow-wrap: anywhere; }
+p.left-out-title { margin: 6px 0 0 0; font-size: 13px; }
 ";
 
 /// The report page.
 pub fn calibration_html(title: &str, cal: &CalibrationFile, observations: &[ViewPoints]) -> String {
     let (coverage_svg, share) = coverage_plot(cal, observations);
+    let res = residuals::Residuals::new(cal, observations);
     let used = cal.views.iter().filter(|v| v.status == ViewStatus::Used).count();
     let mut o = String::new();
     page_head(&mut o, title, &[page::BASE_CSS, REPORT_CSS], Script::Inline);
@@ -394,12 +269,15 @@ pub fn calibration_html(title: &str, cal: &CalibrationFile, observations: &[View
         cal.summary.final_cost,
         esc(&cal.summary.termination)
     );
+    o.push_str(&residuals::view_selector(&res));
     figure_grid(
         &mut o,
         &[
-            ("plot-residuals", "Residuals across the image", residual_plot(cal, observations)),
+            ("plot-residuals", "Residuals across the image", residuals::vector_plot(cal, &res)),
+            ("plot-scatter", "Residual scatter", residuals::scatter_plot(&res)),
+            ("plot-histogram", "Residual lengths", residuals::histogram_plot(&res)),
+            ("plot-view-errors", "Error per image", residuals::per_image_plot(cal, &res)),
             ("plot-coverage", "Coverage and where more shots are needed", coverage_svg),
-            ("plot-view-errors", "Error per image", view_error_plot(cal)),
             ("plot-distortion", "Distortion field", distortion_plot(cal)),
         ],
     );

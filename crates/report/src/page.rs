@@ -94,12 +94,26 @@ pub fn figure_grid(o: &mut String, figures: &[(&str, &str, String)]) {
 }
 
 /// After layout, each `svg.plot` records its drawn size and the number of elements matching
-/// `counted` (a CSS selector) inside it as `data-drawn="WxH:N"`, and the body gets
-/// `data-ready="yes"`, so a headless browser's DOM dump proves that every plot rendered.
+/// `counted` (a CSS selector) inside it as `data-drawn="WxH:N"`, and what a reader needs of it
+/// as `data-check="A:L:S:O"`: A axis labels that name a unit, L legend entries, S data series
+/// (its `data-series`), O text elements drawn outside the plot's box. The body gets the page's
+/// scroll width as `data-width`, the number of text blocks wider than their box as
+/// `data-overflow`, and `data-ready="yes"`, so a headless browser's DOM dump proves that every
+/// plot rendered and can be read (see [`crate::plot`] for the markup).
 pub fn drawn_size_script(o: &mut String, counted: &str) {
     let _ = writeln!(
         o,
-        "<script>window.addEventListener('load', function () {{ document.querySelectorAll('svg.plot').forEach(function (s) {{ var b = s.getBoundingClientRect(); s.setAttribute('data-drawn', Math.round(b.width) + 'x' + Math.round(b.height) + ':' + s.querySelectorAll('{counted}').length); }}); document.body.setAttribute('data-ready', 'yes'); }});</script>"
+        "<script>window.addEventListener('load', function () {{ \
+document.querySelectorAll('svg.plot').forEach(function (s) {{ var b = s.getBoundingClientRect(); \
+s.setAttribute('data-drawn', Math.round(b.width) + 'x' + Math.round(b.height) + ':' + s.querySelectorAll('{counted}').length); \
+var out = 0; s.querySelectorAll('text').forEach(function (t) {{ var r = t.getBoundingClientRect(); \
+if (r.width > 0 && (r.left < b.left - 1 || r.right > b.right + 1 || r.top < b.top - 1 || r.bottom > b.bottom + 1)) {{ out++; }} }}); \
+var axes = 0; s.querySelectorAll('text.axis-label').forEach(function (t) {{ if (t.getAttribute('data-unit')) {{ axes++; }} }}); \
+s.setAttribute('data-check', axes + ':' + s.querySelectorAll('.legend-entry').length + ':' + (s.getAttribute('data-series') || '0') + ':' + out); }}); \
+var over = 0; document.querySelectorAll('td, th, li, p, figcaption, h1, h2').forEach(function (e) {{ if (e.scrollWidth > e.clientWidth + 1) {{ over++; }} }}); \
+document.body.setAttribute('data-width', document.documentElement.scrollWidth); \
+document.body.setAttribute('data-overflow', over); \
+document.body.setAttribute('data-ready', 'yes'); }});</script>"
     );
 }
 
