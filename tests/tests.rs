@@ -11,6 +11,7 @@ mod crafted;
 
 mod bad_input;
 mod calibrate;
+mod code_shape;
 mod detect;
 mod fleet;
 mod regress;
