@@ -14,6 +14,7 @@ mod calibrate;
 mod code_shape;
 mod detect;
 mod fleet;
+mod hostile;
 mod regress;
 mod render;
 mod solve;

@@ -9,7 +9,7 @@ use nalgebra::{Point2, Point3};
 
 use crate::util::{facetcal, scratch};
 
-fn camera() -> Camera {
+pub fn camera() -> Camera {
     Camera {
         width: 320,
         height: 240,
@@ -24,7 +24,7 @@ fn camera() -> Camera {
     }
 }
 
-fn calibration(camera: Camera) -> CalibrationFile {
+pub fn calibration(camera: Camera) -> CalibrationFile {
     CalibrationFile {
         format: CALIBRATION_FORMAT.into(),
         version: FILES_VERSION,

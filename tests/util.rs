@@ -98,3 +98,33 @@ pub fn corner_shot() -> Vec<u8> {
     render_pngs("corner", lens(1024, 768, 900.0, -0.10, 0.03), 1, [450.0, 500.0], [0.0, 10.0])
         .remove(0)
 }
+
+/// Runs `facetcal ARGS` like [`facetcal`], but kills it after `secs` seconds: a run that would
+/// block (a FIFO opened for reading) fails its test instead of hanging the suite.
+pub fn facetcal_within(dir: &Path, args: &[&str], secs: u64) -> Run {
+    let mut child = Command::new(env!("CARGO_BIN_EXE_facetcal"))
+        .args(args)
+        .current_dir(dir)
+        .env_remove("FACETCAL_LOG")
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("the facetcal binary runs");
+    let start = std::time::Instant::now();
+    while child.try_wait().expect("wait").is_none() {
+        if start.elapsed() > std::time::Duration::from_secs(secs) {
+            let _ = child.kill();
+            let _ = child.wait();
+            panic!("facetcal {args:?} still running after {secs} s");
+        }
+        std::thread::sleep(std::time::Duration::from_millis(20));
+    }
+    child.wait_with_output().expect("output").into()
+}
+
+/// Makes a FIFO at `path`.
+#[cfg(unix)]
+pub fn mkfifo(path: &Path) {
+    let status = Command::new("mkfifo").arg(path).status().expect("mkfifo runs");
+    assert!(status.success(), "mkfifo {}", path.display());
+}

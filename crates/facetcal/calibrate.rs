@@ -207,15 +207,12 @@ impl CalibrationOptions {
 
 /// Reads and checks a target file; its hash goes into every result.
 pub fn load_target(path: &Path) -> anyhow::Result<(Target, InputRecord)> {
-    let bytes = std::fs::read(path)
-        .with_context(|| format!("cannot read target file {}", path.display()))?;
-    let target = std::str::from_utf8(&bytes)
-        .map_err(|e| exit::coded(exit::DATA, format!("target file: not UTF-8 text: {e}")))
-        .and_then(|text| {
-            Target::from_json(text)
-                .map_err(|e| exit::coded(exit::DATA, format!("target file: {e}")))
-        })
-        .with_context(|| format!("target file {}", path.display()))?;
+    // The input errors name the file themselves.
+    let bytes = facetcal_inputs::read_capped(path, facetcal_inputs::MAX_JSON_BYTES)
+        .context("target file")?;
+    let text = facetcal_inputs::text_from_bytes(path, bytes.clone()).context("target file")?;
+    let target = Target::from_json(&text)
+        .map_err(|e| exit::coded(exit::DATA, format!("target file {}: {e}", path.display())))?;
     let record = InputRecord {
         path: path.display().to_string(),
         sha256: facetcal_imageio::sha256_hex(&bytes),

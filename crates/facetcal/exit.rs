@@ -2,6 +2,7 @@
 // The full table is defined once here; not every command uses every code.
 #![allow(dead_code)]
 
+use facetcal_inputs::InputError;
 use facetcal_model::ModelError;
 
 /// Success.
@@ -48,9 +49,13 @@ pub fn code_of(e: &anyhow::Error) -> u8 {
         if let Some(c) = cause.downcast_ref::<Coded>() {
             return c.code;
         }
+        if let Some(i) = cause.downcast_ref::<InputError>() {
+            return input_code(i);
+        }
         if let Some(m) = cause.downcast_ref::<ModelError>() {
             return match m {
                 ModelError::Io { source, .. } => io_code(source),
+                ModelError::Input(i) => input_code(i),
                 _ => DATA,
             };
         }
@@ -59,6 +64,16 @@ pub fn code_of(e: &anyhow::Error) -> u8 {
         }
     }
     SOFTWARE
+}
+
+/// A path that is not a regular file cannot be read (66); a file that was read but is too large
+/// or not text is bad data (65).
+pub fn input_code(e: &InputError) -> u8 {
+    match e {
+        InputError::Io { source, .. } => io_code(source),
+        InputError::NotRegular { .. } => NO_INPUT,
+        _ => DATA,
+    }
 }
 
 fn io_code(e: &std::io::Error) -> u8 {

@@ -70,8 +70,8 @@ const FLEET_HTML: &str = "fleet.html";
 const CAMERA_FILES: [&str; 2] = ["calibration.json", "report.html"];
 
 fn load_spec(path: &Path) -> anyhow::Result<FleetSpec> {
-    let text = std::fs::read_to_string(path)
-        .with_context(|| format!("cannot read spec file {}", path.display()))?;
+    let text = facetcal_inputs::read_json_text(path)
+        .with_context(|| format!("spec file {}", path.display()))?;
     FleetSpec::from_json(&text)
         .map_err(|e| exit::coded(exit::DATA, format!("spec file {}: {e}", path.display())))
 }
@@ -254,8 +254,7 @@ pub fn run(args: FleetArgs) -> anyhow::Result<ExitCode> {
 
 fn read_fleet(dir: &Path) -> anyhow::Result<FleetFile> {
     let path = dir.join(FLEET_JSON);
-    let text = std::fs::read_to_string(&path)
-        .with_context(|| format!("cannot read {}", path.display()))?;
+    let text = facetcal_inputs::read_json_text(&path)?;
     FleetFile::from_json(&text)
         .map_err(|e| exit::coded(exit::DATA, format!("{}: {e}", path.display())))
 }
@@ -265,8 +264,7 @@ fn read_fleet(dir: &Path) -> anyhow::Result<FleetFile> {
 fn check_camera(dir: &Path, fleet: &FleetFile, c: &CameraEntry) -> anyhow::Result<()> {
     let Some(result) = &c.result else { return Ok(()) };
     let path = dir.join(result);
-    let text = std::fs::read_to_string(&path)
-        .with_context(|| format!("cannot read {}", path.display()))?;
+    let text = facetcal_inputs::read_json_text(&path)?;
     let file = CalibrationFile::from_json(&text)
         .map_err(|e| exit::coded(exit::DATA, format!("{}: {e}", path.display())))?;
     let again = camera_entry(&c.id, Ok(&file), fleet.header.spec.as_ref(), result);

@@ -57,6 +57,7 @@ fn fail(what: String, e: RegressError) -> anyhow::Error {
         {
             exit::NO_INPUT
         }
+        RegressError::Input(i) => exit::input_code(i),
         RegressError::Io { .. } | RegressError::CacheConflict { .. } => exit::CANT_CREATE,
         _ => exit::DATA,
     };
@@ -77,8 +78,8 @@ pub fn run(args: RegressArgs) -> anyhow::Result<ExitCode> {
         .map_err(|e| fail(format!("suite file {}", args.suite.display()), e))?;
     let baseline = match &args.baseline {
         Some(p) => {
-            let text = std::fs::read_to_string(p)
-                .with_context(|| format!("cannot read baseline file {}", p.display()))?;
+            let text = facetcal_inputs::read_json_text(p)
+                .with_context(|| format!("baseline file {}", p.display()))?;
             Some(
                 BaselineFile::from_json(&text)
                     .map_err(|e| fail(format!("baseline file {}", p.display()), e))?,

@@ -30,6 +30,9 @@ fn code_of(e: &RenderError) -> u8 {
     };
     match e {
         RenderError::Io { source, .. } if missing(source) => exit::NO_INPUT,
+        RenderError::Input(i) | RenderError::Target { source: ModelError::Input(i), .. } => {
+            exit::input_code(i)
+        }
         RenderError::Target { source: ModelError::Io { source, .. }, .. } if missing(source) => {
             exit::NO_INPUT
         }

@@ -30,8 +30,8 @@ pub struct SolveArgs {
 
 pub fn run(args: SolveArgs) -> anyhow::Result<ExitCode> {
     let path = &args.correspondences;
-    let text = std::fs::read_to_string(path)
-        .with_context(|| format!("cannot read correspondence file {}", path.display()))?;
+    let text = facetcal_inputs::read_json_text(path)
+        .with_context(|| format!("correspondence file {}", path.display()))?;
     let file = CorrespondenceFile::from_json(&text)
         .with_context(|| format!("correspondence file {}", path.display()))?;
     let mut options =

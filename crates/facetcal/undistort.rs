@@ -29,10 +29,7 @@ pub struct UndistortArgs {
 
 /// Reads a calibration result, naming the file in any error.
 pub fn load_calibration(path: &Path) -> anyhow::Result<CalibrationFile> {
-    let text = std::fs::read_to_string(path)
-        .with_context(|| format!("calibration file {}", path.display()))?;
-    CalibrationFile::from_json(&text)
-        .with_context(|| format!("calibration file {}", path.display()))
+    CalibrationFile::load(path).with_context(|| format!("calibration file {}", path.display()))
 }
 
 pub fn run(args: UndistortArgs) -> anyhow::Result<ExitCode> {

@@ -20,7 +20,7 @@
 // invariants that cannot fail say so with an allowed `expect` beside the reason.
 #![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
-use std::io::{Cursor, Read};
+use std::io::Cursor;
 use std::path::{Path, PathBuf};
 
 use image::{DynamicImage, ImageDecoder, ImageFormat, ImageReader, metadata::Orientation};
@@ -43,7 +43,11 @@ pub struct DecodeLimits {
 
 impl Default for DecodeLimits {
     fn default() -> Self {
-        DecodeLimits { max_pixels: 100_000_000, max_alloc_bytes: 2 << 30, max_file_bytes: 1 << 30 }
+        DecodeLimits {
+            max_pixels: facetcal_inputs::MAX_PIXELS,
+            max_alloc_bytes: 2 << 30,
+            max_file_bytes: facetcal_inputs::MAX_IMAGE_FILE_BYTES,
+        }
     }
 }
 
@@ -86,6 +90,15 @@ pub struct LoadedImage {
 #[derive(Debug, Error)]
 #[non_exhaustive]
 pub enum ImageIoError {
+    /// The path is not a regular file (a folder, FIFO, socket or device), refused without
+    /// blocking.
+    #[error("{}: is {kind}, not a regular file", path.display())]
+    NotRegular {
+        /// The file.
+        path: PathBuf,
+        /// What it is ("a FIFO"...).
+        kind: &'static str,
+    },
     /// The file could not be read.
     #[error("{}: cannot read: {source}", path.display())]
     Io {
@@ -192,11 +205,23 @@ pub fn sha256_hex(bytes: &[u8]) -> String {
     d.iter().map(|b| format!("{b:02x}")).collect()
 }
 
-/// SHA-256 of a file's bytes, lower-case hex.
+/// SHA-256 of a regular file's bytes (at most [`DecodeLimits::max_file_bytes`] by default),
+/// lower-case hex.
 pub fn sha256_file(path: &Path) -> Result<String, ImageIoError> {
-    let bytes =
-        std::fs::read(path).map_err(|source| ImageIoError::Io { path: path.into(), source })?;
-    Ok(sha256_hex(&bytes))
+    Ok(sha256_hex(&read_file(path, DecodeLimits::default().max_file_bytes)?))
+}
+
+/// Reads a regular file of at most `limit` bytes; opening never blocks.
+fn read_file(path: &Path, limit: u64) -> Result<Vec<u8>, ImageIoError> {
+    use facetcal_inputs::InputError;
+    facetcal_inputs::read_capped(path, limit).map_err(|e| match e {
+        InputError::NotRegular { path, kind } => ImageIoError::NotRegular { path, kind },
+        InputError::TooLarge { path, limit } => {
+            ImageIoError::TooLarge { path, detail: format!("file larger than {limit} bytes") }
+        }
+        InputError::Io { path, source } => ImageIoError::Io { path, source },
+        other => ImageIoError::Io { path: path.into(), source: std::io::Error::other(other) },
+    })
 }
 
 /// Checks the end of the stream for formats whose decoders accept a file cut short.
@@ -238,17 +263,7 @@ fn orientation_name(o: Orientation) -> &'static str {
 
 /// Reads and decodes one image file with every check of this crate.
 pub fn load(path: &Path, options: &LoadOptions) -> Result<LoadedImage, ImageIoError> {
-    let io = |source| ImageIoError::Io { path: path.into(), source };
-    let file = std::fs::File::open(path).map_err(io)?;
-    let mut bytes = Vec::new();
-    file.take(options.limits.max_file_bytes + 1).read_to_end(&mut bytes).map_err(io)?;
-    if bytes.len() as u64 > options.limits.max_file_bytes {
-        return Err(ImageIoError::TooLarge {
-            path: path.into(),
-            detail: format!("file larger than {} bytes", options.limits.max_file_bytes),
-        });
-    }
-    decode(path, bytes, options)
+    decode(path, read_file(path, options.limits.max_file_bytes)?, options)
 }
 
 /// Decodes a file's bytes already in memory (`path` names it in errors).

@@ -27,6 +27,9 @@ pub enum ModelError {
     /// A file is not valid JSON or does not have the expected shape.
     #[error("{0}")]
     Parse(String),
+    /// An input file is not a regular file, too large, or not UTF-8 text.
+    #[error(transparent)]
+    Input(#[from] facetcal_inputs::InputError),
     /// A file could not be read.
     #[error("cannot read {path}")]
     Io {

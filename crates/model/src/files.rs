@@ -128,6 +128,65 @@ pub fn parse_with_path<T: serde::de::DeserializeOwned>(text: &str) -> Result<T, 
     })
 }
 
+/// Checks a camera read from a file, naming the field (`at` is its JSON path): an image size
+/// within [`facetcal_inputs::MAX_PIXELS`] (the pixel limit of images, since the camera's image
+/// size sizes the buffers made from it), positive finite focal lengths, finite skew and
+/// distortion, and a principal point no further than one image size outside the image.
+pub fn check_file_camera(c: &Camera, at: &str) -> Result<(), ModelError> {
+    check_image_size([c.width, c.height], at)?;
+    let i = &c.intrinsics;
+    for (name, v) in [("fx", i.fx), ("fy", i.fy)] {
+        if !(v.is_finite() && v > 0.0) {
+            return Err(ModelError::field(
+                format!("{at}.intrinsics.{name}"),
+                format!("must be a positive finite focal length, got {v}"),
+            ));
+        }
+    }
+    let (w, h) = (c.width as f64, c.height as f64);
+    for (name, v, size) in [("cx", i.cx, w), ("cy", i.cy, h)] {
+        if !(v.is_finite() && v >= -size && v <= 2.0 * size) {
+            return Err(ModelError::field(
+                format!("{at}.intrinsics.{name}"),
+                format!("the principal point must lie within one image size of the image, got {v}"),
+            ));
+        }
+    }
+    if !i.skew.is_finite() {
+        return Err(ModelError::field(format!("{at}.intrinsics.skew"), "must be finite"));
+    }
+    let d = &c.distortion;
+    for (name, v) in d.names().iter().zip(d.coefficients()) {
+        if !v.is_finite() {
+            return Err(ModelError::field(
+                format!("{at}.distortion.{name}"),
+                format!("must be finite, got {v}"),
+            ));
+        }
+    }
+    c.validate().map_err(|e| ModelError::field(at, e.to_string()))
+}
+
+/// Checks an image size `[width, height]` read from a file: both positive, and at most
+/// [`facetcal_inputs::MAX_PIXELS`] pixels in all.
+pub fn check_image_size(size: [u32; 2], at: &str) -> Result<(), ModelError> {
+    let [w, h] = size;
+    if w == 0 || h == 0 {
+        return Err(ModelError::field(
+            at,
+            format!("width and height must be positive, got {w} x {h}"),
+        ));
+    }
+    let limit = facetcal_inputs::MAX_PIXELS;
+    if w as u64 * h as u64 > limit {
+        return Err(ModelError::field(
+            at,
+            format!("{w} x {h} pixels is over the limit of {limit} pixels (the limit of images)"),
+        ));
+    }
+    Ok(())
+}
+
 /// Checks `format` and `version` before the rest of the file is interpreted, so that a file
 /// of another kind or version gets that message rather than a shape error.
 fn check_header(text: &str, format: &str) -> Result<(), ModelError> {
@@ -178,9 +237,7 @@ impl CorrespondenceFile {
     pub fn from_json(text: &str) -> Result<Self, ModelError> {
         check_header(text, CORRESPONDENCE_FORMAT)?;
         let f: CorrespondenceFile = parse_with_path(text)?;
-        if f.image_size[0] == 0 || f.image_size[1] == 0 {
-            return Err(ModelError::field("image_size", "width and height must be positive"));
-        }
+        check_image_size(f.image_size, "image_size")?;
         if f.views.is_empty() {
             return Err(ModelError::field("views", "no views"));
         }
@@ -201,7 +258,7 @@ impl CorrespondenceFile {
             }
         }
         if let Some(c) = &f.initial {
-            c.validate().map_err(|e| ModelError::field("initial", e.to_string()))?;
+            check_file_camera(c, "initial")?;
             if c.distortion.kind() != f.model {
                 return Err(ModelError::field(
                     "initial.distortion",
@@ -454,10 +511,19 @@ pub struct CalibrationFile {
 }
 
 impl CalibrationFile {
-    /// Parses a calibration file, refusing other formats and versions.
+    /// Reads and checks a calibration file: a regular file of at most
+    /// [`facetcal_inputs::MAX_JSON_BYTES`], then [`CalibrationFile::from_json`].
+    pub fn load(path: &std::path::Path) -> Result<Self, ModelError> {
+        CalibrationFile::from_json(&facetcal_inputs::read_json_text(path)?)
+    }
+
+    /// Parses a calibration file, refusing other formats and versions, and checks its camera
+    /// ([`check_file_camera`]) before anything is sized from it.
     pub fn from_json(text: &str) -> Result<Self, ModelError> {
         check_header(text, CALIBRATION_FORMAT)?;
-        parse_with_path(text)
+        let f: CalibrationFile = parse_with_path(text)?;
+        check_file_camera(&f.camera, "camera")?;
+        Ok(f)
     }
 
     /// The file's text, pretty-printed. Fails, naming the field, if any number is not finite.

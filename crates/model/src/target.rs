@@ -606,9 +606,7 @@ pub fn apply_symmetry(k: usize, rows: u32, cols: u32, (r, c): (u32, u32)) -> (u3
 impl Target {
     /// Reads and checks a target file.
     pub fn load(path: &Path) -> Result<Target, ModelError> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|source| ModelError::Io { path: path.to_path_buf(), source })?;
-        Target::from_json(&text)
+        Target::from_json(&facetcal_inputs::read_json_text(path)?)
     }
 
     /// Parses and checks a target file's text.

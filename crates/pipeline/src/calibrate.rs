@@ -117,7 +117,17 @@ pub fn list_images(dir: &Path) -> Result<(Vec<PathBuf>, Vec<SkippedFile>), Pipel
         if name.starts_with('.') || path.is_dir() {
             continue;
         }
-        if facetcal_imageio::is_image_name(&path) {
+        // A FIFO or device is never opened: reading one could block or never end.
+        let special = match std::fs::metadata(&path) {
+            Ok(meta) => facetcal_inputs::special_kind(&meta),
+            Err(e) => {
+                skipped.push(SkippedFile { path, reason: format!("cannot read: {e}") });
+                continue;
+            }
+        };
+        if let Some(kind) = special {
+            skipped.push(SkippedFile { path, reason: format!("is {kind}, not a regular file") });
+        } else if facetcal_imageio::is_image_name(&path) {
             images.push(path);
         } else {
             skipped.push(SkippedFile {

@@ -20,6 +20,9 @@ pub enum RegressError {
     /// A file is not valid JSON or does not have the expected shape at its top level.
     #[error("{0}")]
     Parse(String),
+    /// An input file is not a regular file, too large, or not UTF-8 text.
+    #[error(transparent)]
+    Input(#[from] facetcal_inputs::InputError),
     /// A file or folder could not be read or written.
     #[error("{action} {path}")]
     Io {

@@ -346,11 +346,7 @@ pub(crate) fn check_header(text: &str, format: &str, version: u32) -> Result<(),
 impl Suite {
     /// Reads and checks a suite file and every scene it names (relative to its folder).
     pub fn load(path: &Path) -> Result<Suite, RegressError> {
-        let text = std::fs::read_to_string(path).map_err(|source| RegressError::Io {
-            action: "cannot read",
-            path: path.to_path_buf(),
-            source,
-        })?;
+        let text = facetcal_inputs::read_json_text(path)?;
         Suite::from_json(&text, path.parent().unwrap_or(Path::new(".")))
     }
 
@@ -411,9 +407,7 @@ impl Suite {
                 path: scene_path.clone(),
                 source,
             };
-            let scene_text = std::fs::read_to_string(&scene_path).map_err(|source| {
-                RegressError::Io { action: "cannot read", path: scene_path.clone(), source }
-            })?;
+            let scene_text = facetcal_inputs::read_json_text(&scene_path)?;
             let mut scene_spec = SceneSpec::from_json(&scene_text).map_err(scene_err)?;
             if let Some(seed) = s.seed {
                 scene_spec.seed = seed;

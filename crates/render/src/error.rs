@@ -21,6 +21,9 @@ pub enum RenderError {
     /// A file is not valid JSON or does not have the expected shape at its top level.
     #[error("{0}")]
     Parse(String),
+    /// An input file is not a regular file, too large, or not UTF-8 text.
+    #[error(transparent)]
+    Input(#[from] facetcal_inputs::InputError),
     /// A file could not be read.
     #[error("cannot read {path}")]
     Io {

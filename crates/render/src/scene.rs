@@ -312,8 +312,7 @@ impl SceneSpec {
 impl Scene {
     /// Reads and checks a scene file; the target path is resolved against the file's folder.
     pub fn load(path: &Path) -> Result<Scene, RenderError> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|source| RenderError::Io { path: path.to_path_buf(), source })?;
+        let text = facetcal_inputs::read_json_text(path)?;
         let spec = SceneSpec::from_json(&text)?;
         Scene::from_spec(spec, path.parent().unwrap_or(Path::new(".")))
     }

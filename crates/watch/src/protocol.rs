@@ -181,7 +181,17 @@ pub fn inventory(batch: &Path) -> Result<Vec<InputFile>, String> {
         if md.is_dir() {
             continue;
         }
-        let bytes = std::fs::read(&path).map_err(|e| format!("cannot read {name}: {e}"))?;
+        // A FIFO or device would block the job slot or never end: the batch fails instead.
+        if let Some(kind) = facetcal_inputs::special_kind(&md) {
+            return Err(format!("{name} is {kind}, not a regular file"));
+        }
+        let bytes = facetcal_inputs::read_capped(&path, facetcal_inputs::MAX_IMAGE_FILE_BYTES)
+            .map_err(|e| match e {
+                facetcal_inputs::InputError::Io { source, .. } => {
+                    format!("cannot read {name}: {source}")
+                }
+                other => other.to_string(),
+            })?;
         files.push(InputFile {
             name,
             size: bytes.len() as u64,
